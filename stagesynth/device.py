@@ -1,0 +1,211 @@
+"""The reference transistor model of the spec contract, and built-in generic presets.
+
+Everything here is a pure function of a `Device` and an operating condition, so
+that DC, AC, synthesis and the Monte Carlo all share one model. Temperatures are
+in degrees Celsius; everything else is SI.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, fields, replace
+
+import numpy as np
+
+# CODATA 2018 exact values (SI redefinition of 2019).
+BOLTZMANN = 1.380649e-23  # J/K
+ELEMENTARY_CHARGE = 1.602176634e-19  # C
+ZERO_CELSIUS = 273.15  # K
+T_REF_C = 25.0  # reference temperature of the datasheet values, degrees Celsius
+
+
+def thermal_voltage(tj_c: float | np.ndarray) -> float | np.ndarray:
+    """VT = k*T/q at junction temperature `tj_c` (degrees Celsius)."""
+    return BOLTZMANN * (np.asarray(tj_c) + ZERO_CELSIUS) / ELEMENTARY_CHARGE
+
+
+@dataclass(frozen=True)
+class Device:
+    """Datasheet description of one bipolar transistor type (spec section [transistor]).
+
+    `vbe` and `vce_sat` are magnitudes for either polarity; `hfe_min`/`hfe_max`
+    are the production spread at 25 degC; tempcos are per kelvin (`hfe_tempco`
+    as a fraction, `vbe_tempco` in V/K).
+    """
+
+    polarity: str  # "npn" or "pnp"
+    hfe_min: float
+    hfe_max: float
+    vbe: float
+    ft: float
+    c_cb: float
+    hfe_typ: float | None = None
+    vbe_current: float = 1e-3
+    early_voltage: float = 100.0
+    r_bb: float = 0.0
+    vce_sat: float = 0.2
+    ic_max: float | None = None
+    vce_max: float | None = None
+    p_max: float | None = None
+    theta_ja: float | None = None
+    vbe_tempco: float = -2e-3
+    hfe_tempco: float = 5e-3
+    name: str = ""
+
+    @property
+    def sign(self) -> int:
+        """+1 for NPN, -1 for PNP: terminal voltages and currents mirror."""
+        return 1 if self.polarity == "npn" else -1
+
+    @property
+    def hfe_nominal(self) -> float:
+        """hfe_typ when given, else the geometric mean of the spread."""
+        if self.hfe_typ is not None:
+            return self.hfe_typ
+        return math.sqrt(self.hfe_min * self.hfe_max)
+
+    def with_overrides(self, **values: object) -> Device:
+        """A copy with some fields replaced (spec fields override a preset)."""
+        return replace(self, **values)
+
+    def to_design_dict(self) -> dict:
+        """The design-file form (section 3 of the contract): SI floats, spread as a list."""
+        data = {k: v for k, v in asdict(self).items() if v is not None and k != "name"}
+        data["hfe"] = [data.pop("hfe_min"), data.pop("hfe_max")]
+        data["hfe_typ"] = self.hfe_nominal
+        if self.name:
+            data["preset"] = self.name
+        return data
+
+    @classmethod
+    def field_names(cls) -> tuple[str, ...]:
+        return tuple(f.name for f in fields(cls))
+
+
+def hfe_at(device: Device, hfe25: float | np.ndarray, tj_c: float | np.ndarray):
+    """hFE(Tj) = hFE25 * (1 + hfe_tempco * (Tj - 25 degC)), linear about 25 degC."""
+    return hfe25 * (1.0 + device.hfe_tempco * (np.asarray(tj_c) - T_REF_C))
+
+
+def vbe_at_reference_current(device: Device, tj_c: float | np.ndarray):
+    """Junction voltage that carries `vbe_current` at Tj: moves by `vbe_tempco` per kelvin."""
+    return device.vbe + device.vbe_tempco * (np.asarray(tj_c) - T_REF_C)
+
+
+def saturation_current(device: Device, tj_c: float | np.ndarray):
+    """IS(Tj) chosen so that IS*exp(VBE(Tj)/VT(Tj)) = vbe_current.
+
+    The Early factor is taken as 1 at the datasheet point (VCE small against VA),
+    and `vbe` is the junction voltage at `vbe_current`.
+    """
+    vt = thermal_voltage(tj_c)
+    return device.vbe_current * np.exp(-vbe_at_reference_current(device, tj_c) / vt)
+
+
+@dataclass(frozen=True)
+class HybridPi:
+    """Small-signal parameters at one operating point (section 2 of the contract)."""
+
+    gm: float
+    r_pi: float
+    r_o: float
+    c_pi: float
+    c_mu: float
+    r_x: float
+
+
+def hybrid_pi(device: Device, ic: float, vce: float, hfe: float, tj_c: float) -> HybridPi:
+    """gm = IC/VT, r_pi = hFE/gm, ro = (VA+VCE)/IC, Cpi = max(gm/(2 pi fT) - Cmu, 0).
+
+    `ic` and `vce` are polarity-normalized magnitudes (positive in the active region);
+    `hfe` is the DC gain at the junction temperature.
+    """
+    vt = float(thermal_voltage(tj_c))
+    ic_eff = max(ic, 1e-15)
+    gm = ic_eff / vt
+    return HybridPi(
+        gm=gm,
+        r_pi=hfe / gm,
+        r_o=(device.early_voltage + vce) / ic_eff,
+        c_pi=max(gm / (2.0 * math.pi * device.ft) - device.c_cb, 0.0),
+        c_mu=device.c_cb,
+        r_x=device.r_bb,
+    )
+
+
+# Built-in presets: generic, invented values in the range of common small-signal
+# parts. They are not any manufacturer's part and carry no part number.
+PRESETS: dict[str, Device] = {
+    "generic-npn": Device(
+        name="generic-npn",
+        polarity="npn",
+        hfe_min=100.0,
+        hfe_max=300.0,
+        hfe_typ=175.0,
+        vbe=0.65,
+        vbe_current=1e-3,
+        early_voltage=100.0,
+        ft=250e6,
+        c_cb=4e-12,
+        r_bb=50.0,
+        vce_sat=0.2,
+        ic_max=0.1,
+        vce_max=40.0,
+        p_max=0.5,
+        theta_ja=250.0,
+    ),
+    "generic-pnp": Device(
+        name="generic-pnp",
+        polarity="pnp",
+        hfe_min=100.0,
+        hfe_max=300.0,
+        hfe_typ=170.0,
+        vbe=0.66,
+        vbe_current=1e-3,
+        early_voltage=80.0,
+        ft=200e6,
+        c_cb=5e-12,
+        r_bb=60.0,
+        vce_sat=0.25,
+        ic_max=0.1,
+        vce_max=40.0,
+        p_max=0.5,
+        theta_ja=250.0,
+    ),
+    "lownoise-npn": Device(
+        name="lownoise-npn",
+        polarity="npn",
+        hfe_min=250.0,
+        hfe_max=800.0,
+        hfe_typ=450.0,
+        vbe=0.62,
+        vbe_current=1e-3,
+        early_voltage=120.0,
+        ft=150e6,
+        c_cb=3.5e-12,
+        r_bb=15.0,
+        vce_sat=0.2,
+        ic_max=0.05,
+        vce_max=45.0,
+        p_max=0.5,
+        theta_ja=250.0,
+    ),
+    "rf-npn": Device(
+        name="rf-npn",
+        polarity="npn",
+        hfe_min=60.0,
+        hfe_max=200.0,
+        hfe_typ=110.0,
+        vbe=0.75,
+        vbe_current=1e-3,
+        early_voltage=40.0,
+        ft=5e9,
+        c_cb=0.5e-12,
+        r_bb=10.0,
+        vce_sat=0.3,
+        ic_max=0.03,
+        vce_max=12.0,
+        p_max=0.25,
+        theta_ja=400.0,
+    ),
+}
