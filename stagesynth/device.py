@@ -104,30 +104,33 @@ def saturation_current(device: Device, tj_c: float | np.ndarray):
 
 @dataclass(frozen=True)
 class HybridPi:
-    """Small-signal parameters at one operating point (section 2 of the contract)."""
+    """Small-signal parameters at operating points (section 2 of the contract).
 
-    gm: float
-    r_pi: float
-    r_o: float
-    c_pi: float
+    Fields are floats or numpy arrays of one shape (a batch of operating points).
+    """
+
+    gm: np.ndarray
+    r_pi: np.ndarray
+    r_o: np.ndarray
+    c_pi: np.ndarray
     c_mu: float
     r_x: float
 
 
-def hybrid_pi(device: Device, ic: float, vce: float, hfe: float, tj_c: float) -> HybridPi:
+def hybrid_pi(device: Device, ic, vce, hfe, tj_c) -> HybridPi:
     """gm = IC/VT, r_pi = hFE/gm, ro = (VA+VCE)/IC, Cpi = max(gm/(2 pi fT) - Cmu, 0).
 
-    `ic` and `vce` are polarity-normalized magnitudes (positive in the active region);
-    `hfe` is the DC gain at the junction temperature.
+    `ic` and `vce` are polarity-normalized (positive in the active region); `hfe` is
+    the DC gain at the junction temperature `tj_c`. Works elementwise on arrays.
     """
-    vt = float(thermal_voltage(tj_c))
-    ic_eff = max(ic, 1e-15)
+    vt = thermal_voltage(tj_c)
+    ic_eff = np.maximum(ic, 1e-15)
     gm = ic_eff / vt
     return HybridPi(
         gm=gm,
         r_pi=hfe / gm,
-        r_o=(device.early_voltage + vce) / ic_eff,
-        c_pi=max(gm / (2.0 * math.pi * device.ft) - device.c_cb, 0.0),
+        r_o=(device.early_voltage + np.asarray(vce)) / ic_eff,
+        c_pi=np.maximum(gm / (2.0 * math.pi * device.ft) - device.c_cb, 0.0),
         c_mu=device.c_cb,
         r_x=device.r_bb,
     )

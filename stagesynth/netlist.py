@@ -347,7 +347,9 @@ def design_from_dict(data: Any, file: str = "<design>") -> Design:
 def _part_from_dict(raw: Any, i: int, devices: Mapping[str, Device], r: _Reader) -> Part:
     path = f"parts[{i}]"
     if not isinstance(raw, Mapping):
-        raise r.fail(path, "is not an object", '{"ref": ..., "kind": ..., "value": ..., "nodes": [...]}')
+        raise r.fail(
+            path, "is not an object", '{"ref": ..., "kind": ..., "value": ..., "nodes": [...]}'
+        )
     ref = r.text(raw, "ref", path)
     path = f"parts[{i}] ({ref})"
     kind = raw.get("kind")

@@ -1,0 +1,232 @@
+"""Small-signal AC analysis: modified nodal analysis with the hybrid-pi model.
+
+The stage's admittance matrix is Y(s) = G + s*C over the nodes other than ground
+and supply (both AC ground). Sweeps are one batched `numpy.linalg.solve` over
+(batch, frequency). The source (EMF behind its resistance) and the load (R || C)
+are added per measurement: gain, input impedance, output impedance.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .circuit import Circuit
+from .dc import DcBatch
+from .device import hybrid_pi
+
+_GRID_PER_DECADE = 24
+_BISECT_STEPS = 48
+DB3 = 10.0 ** (-3.0 / 20.0)  # the contract's "falls 3 dB": literally 3 dB
+
+
+@dataclass(frozen=True)
+class AcSystem:
+    """Linearized stage for a batch of operating points: Y = G + jwC, (B, n, n).
+
+    The matrices hold the parts and transistors only; source and load are kept
+    apart so that each measurement can attach them as the contract says.
+    """
+
+    circuit: Circuit
+    G: np.ndarray
+    C: np.ndarray
+    gm: np.ndarray  # (B, nQ) for the swing ratios
+    r_o: np.ndarray  # (B, nQ)
+    source_resistance: np.ndarray  # (B,)
+    load_resistance: np.ndarray  # (B,)
+    load_capacitance: np.ndarray  # (B,)
+
+    @property
+    def batch(self) -> int:
+        return self.G.shape[0]
+
+    # -- matrices ------------------------------------------------------------
+    def _y(self, freqs: np.ndarray, *, load: bool) -> np.ndarray:
+        """Y(jw) for every batch member and frequency: (B, F, n, n)."""
+        w = 2.0 * math.pi * np.asarray(freqs, dtype=float).reshape(self.batch, -1)
+        y = self.G[:, None, :, :] + 1j * w[:, :, None, None] * self.C[:, None, :, :]
+        if load:
+            o = self.circuit.output
+            y[:, :, o, o] += 1.0 / self.load_resistance[:, None] + (
+                1j * w * self.load_capacitance[:, None]
+            )
+        return y
+
+    def _freqs(self, freqs: np.ndarray) -> np.ndarray:
+        f = np.asarray(freqs, dtype=float)
+        if f.ndim == 1:
+            f = np.broadcast_to(f, (self.batch, f.size))
+        return f
+
+    # -- measurements ----------------------------------------------------------
+    def node_voltages(self, freqs: np.ndarray) -> np.ndarray:
+        """Node voltages (B, F, n) per volt of source EMF, source and load attached."""
+        f = self._freqs(freqs)
+        y = self._y(f, load=True)
+        i_in = self.circuit.input
+        n = self.circuit.n
+        rs = self.source_resistance
+        if np.all(rs > 0):
+            gs = (1.0 / rs)[:, None]
+            y[:, :, i_in, i_in] += gs
+            rhs = np.zeros(y.shape[:3], dtype=complex)
+            rhs[:, :, i_in] = gs
+            return np.linalg.solve(y, rhs[..., None])[..., 0]
+        # an ideal source fixes the input node at 1 V: move its column to the right side
+        keep = np.array([k for k in range(n) if k != i_in])
+        y_red = y[:, :, keep[:, None], keep[None, :]]
+        rhs = -y[:, :, keep, i_in]
+        sol = np.linalg.solve(y_red, rhs[..., None])[..., 0]
+        v = np.empty(y.shape[:3], dtype=complex)
+        v[:, :, keep] = sol
+        v[:, :, i_in] = 1.0
+        return v
+
+    def gain(self, freqs: np.ndarray) -> np.ndarray:
+        """v_load / v_source_emf, (B, F) complex."""
+        return self.node_voltages(freqs)[:, :, self.circuit.output]
+
+    def z_in(self, freqs: np.ndarray) -> np.ndarray:
+        """Impedance into the input terminal, load in place, source removed: (B, F)."""
+        f = self._freqs(freqs)
+        y = self._y(f, load=True)
+        return self._driving_point(y, self.circuit.input)
+
+    def z_out(self, freqs: np.ndarray) -> np.ndarray:
+        """Impedance back into the output, source resistance in place, load removed."""
+        f = self._freqs(freqs)
+        y = self._y(f, load=False)
+        i_in = self.circuit.input
+        rs = self.source_resistance
+        if np.all(rs > 0):
+            y[:, :, i_in, i_in] += (1.0 / rs)[:, None]
+            return self._driving_point(y, self.circuit.output)
+        n = self.circuit.n
+        keep = np.array([k for k in range(n) if k != i_in])  # input shorted to ground
+        y_red = y[:, :, keep[:, None], keep[None, :]]
+        out = int(np.flatnonzero(keep == self.circuit.output)[0])
+        return self._driving_point(y_red, out)
+
+    @staticmethod
+    def _driving_point(y: np.ndarray, node: int) -> np.ndarray:
+        rhs = np.zeros(y.shape[:3], dtype=complex)
+        rhs[:, :, node] = 1.0
+        return np.linalg.solve(y, rhs[..., None])[..., 0][:, :, node]
+
+    # -- corners ---------------------------------------------------------------
+    def corners(
+        self, midband: np.ndarray, *, decades: float = 9.0
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(|H| at midband, f_low, f_high): where |H| first falls 3 dB below midband.
+
+        Bracketed on a log grid walking away from midband, then bisected in log f;
+        f_low is 0 where the gain never falls (DC coupled), f_high inf likewise.
+        """
+        fm = np.asarray(midband, dtype=float).reshape(self.batch)
+        h_mid = np.abs(self.gain(fm[:, None]))[:, 0]
+        target = h_mid * DB3
+        steps = np.arange(1, int(decades * _GRID_PER_DECADE) + 1) / _GRID_PER_DECADE
+        lows = self._crossing(fm, -steps, target)
+        highs = self._crossing(fm, steps, target)
+        return h_mid, np.where(np.isnan(lows), 0.0, lows), np.where(np.isnan(highs), np.inf, highs)
+
+    def _crossing(self, fm: np.ndarray, log_steps: np.ndarray, target: np.ndarray) -> np.ndarray:
+        grid = fm[:, None] * 10.0 ** log_steps[None, :]
+        mag = np.abs(self.gain(grid))
+        below = mag < target[:, None]
+        found = below.any(axis=1)
+        first = np.argmax(below, axis=1)
+        lg_out = np.log10(grid[np.arange(self.batch), first])  # first point past the corner
+        prev = np.where(first > 0, first - 1, 0)
+        lg_in = np.where(first > 0, np.log10(grid[np.arange(self.batch), prev]), np.log10(fm))
+        for _ in range(_BISECT_STEPS):
+            mid = 0.5 * (lg_in + lg_out)
+            m = np.abs(self.gain(10.0 ** mid[:, None]))[:, 0]
+            inside = m >= target
+            lg_in = np.where(inside, mid, lg_in)
+            lg_out = np.where(inside, lg_out, mid)
+        return np.where(found, 10.0 ** (0.5 * (lg_in + lg_out)), np.nan)
+
+    # -- swing -------------------------------------------------------------------
+    def swing_ratios(self, freq: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per volt at the load: |ic| and |vce| of each transistor at `freq`: (B, nQ) each.
+
+        ic is the intrinsic collector current gm*v_b'e + v_ce/ro, the current that
+        reaches zero at cutoff.
+        """
+        v = self.node_voltages(np.asarray(freq, dtype=float).reshape(self.batch, 1))[:, 0, :]
+        v_load = np.abs(v[:, self.circuit.output])
+        v_ext = np.concatenate([v, np.zeros((self.batch, 2), dtype=complex)], axis=1)
+        ic = np.empty(self.gm.shape)
+        vce = np.empty(self.gm.shape)
+        for k, q in enumerate(self.circuit.bjts):
+            vpi = v_ext[:, q.bi] - v_ext[:, q.e]
+            vc_e = v_ext[:, q.c] - v_ext[:, q.e]
+            ic[:, k] = np.abs(self.gm[:, k] * vpi + vc_e / self.r_o[:, k]) / v_load
+            vce[:, k] = np.abs(vc_e) / v_load
+        return ic, vce
+
+
+def linearize(
+    circuit: Circuit,
+    dc: DcBatch,
+    r_values: np.ndarray,
+    c_values: np.ndarray,
+    source_resistance: np.ndarray | float,
+    load_resistance: np.ndarray | float,
+    load_capacitance: np.ndarray | float,
+) -> AcSystem:
+    """Stamp parts and hybrid-pi transistors at the operating points `dc` into G and C."""
+    B = dc.v.shape[0]
+    n = circuit.n
+    r_values = np.asarray(r_values, dtype=float).reshape(B, -1)
+    c_values = np.asarray(c_values, dtype=float).reshape(B, -1)
+    ar = circuit.incidence(circuit.resistors)
+    ac = circuit.incidence(circuit.capacitors)
+    G = np.einsum("ik,bk,jk->bij", ar, 1.0 / r_values, ar) if ar.shape[1] else np.zeros(
+        (B, n + 2, n + 2)
+    )
+    C = np.einsum("ik,bk,jk->bij", ac, c_values, ac) if ac.shape[1] else np.zeros(
+        (B, n + 2, n + 2)
+    )
+    nq = len(circuit.bjts)
+    gms = np.empty((B, nq))
+    ros = np.empty((B, nq))
+    for k, q in enumerate(circuit.bjts):
+        hp = hybrid_pi(q.device, dc.ic[:, k], dc.vce[:, k], dc.hfe[:, k], dc.tj[:, k])
+        gms[:, k] = hp.gm
+        ros[:, k] = hp.r_o
+        _stamp(G, q.b, q.bi, 1.0 / hp.r_x if q.bi != q.b else 0.0)
+        _stamp(G, q.bi, q.e, 1.0 / hp.r_pi)
+        _stamp(G, q.c, q.e, 1.0 / hp.r_o)
+        _stamp(C, q.bi, q.e, hp.c_pi)
+        _stamp(C, q.bi, q.c, hp.c_mu)
+        # VCCS gm * v(b'e) from collector to emitter
+        G[:, q.c, q.bi] += hp.gm
+        G[:, q.c, q.e] -= hp.gm
+        G[:, q.e, q.bi] -= hp.gm
+        G[:, q.e, q.e] += hp.gm
+    bc = lambda x: np.broadcast_to(np.asarray(x, dtype=float), (B,)).copy()  # noqa: E731
+    return AcSystem(
+        circuit=circuit,
+        G=G[:, :n, :n].copy(),
+        C=C[:, :n, :n].copy(),
+        gm=gms,
+        r_o=ros,
+        source_resistance=bc(source_resistance),
+        load_resistance=bc(load_resistance),
+        load_capacitance=bc(load_capacitance),
+    )
+
+
+def _stamp(m: np.ndarray, i: int, j: int, y) -> None:
+    """Two-terminal admittance y (scalar or (B,)) between nodes i and j."""
+    if i == j:
+        return
+    m[:, i, i] += y
+    m[:, j, j] += y
+    m[:, i, j] -= y
+    m[:, j, i] -= y

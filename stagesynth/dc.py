@@ -1,0 +1,273 @@
+"""DC operating point of a compiled circuit, batched over conditions.
+
+Newton-Raphson on node voltages with junction-voltage limiting, self-heating
+iterated inside the same loop (Tj = Ta + theta_ja*VCE*IC), and supply stepping
+as a fallback from a cold start. Every batch member gets its own convergence
+flag; nothing is hidden: callers report non-convergence.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .circuit import Circuit
+from .device import hfe_at, saturation_current, thermal_voltage
+
+GMIN = 1e-12  # S from every node to ground, so DC-floating nodes stay defined
+_MAX_EXP_ARG = 80.0  # beyond this the exponential is continued linearly
+
+
+@dataclass(frozen=True)
+class DcBatch:
+    """Operating points of B copies of one circuit.
+
+    BJT arrays are (B, nQ), polarity-normalized: ic, ib, vbe, vce are positive in
+    the forward-active region for NPN and PNP alike.
+    """
+
+    v: np.ndarray  # (B, n+2) node voltages, ground and supply last
+    ic: np.ndarray
+    ib: np.ndarray
+    vbe: np.ndarray  # internal junction voltage
+    vce: np.ndarray
+    tj: np.ndarray  # junction temperature, degC
+    hfe: np.ndarray  # DC gain at Tj
+    supply_current: np.ndarray  # (B,) A drawn from the supply
+    converged: np.ndarray  # (B,) bool
+    iterations: int
+
+    @property
+    def power(self) -> np.ndarray:
+        """Collector dissipation VCE*IC, the figure the self-heating model uses."""
+        return self.vce * self.ic
+
+
+def _limexp(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """exp(x) continued linearly above _MAX_EXP_ARG (value, derivative)."""
+    xc = np.minimum(x, _MAX_EXP_ARG)
+    ex = np.exp(xc)
+    val = np.where(x > _MAX_EXP_ARG, ex * (1.0 + x - _MAX_EXP_ARG), ex)
+    return val, ex
+
+
+class _Model:
+    """Vectorized evaluation of KCL residuals and Jacobian for a batch."""
+
+    def __init__(
+        self,
+        circuit: Circuit,
+        r_values: np.ndarray,
+        supply: np.ndarray,
+        hfe25: np.ndarray,
+        ambient: np.ndarray,
+        source_resistance: np.ndarray,
+        load_resistance: np.ndarray,
+    ) -> None:
+        self.c = circuit
+        n = circuit.n
+        self.B = supply.shape[0]
+        branches = list(circuit.resistors)
+        cond = [1.0 / r_values[:, k] for k in range(len(circuit.resistors))]
+        # the load, and the source resistance (the source EMF is 0 V at DC)
+        branches.append(("RL", circuit.output, circuit.ground))
+        cond.append(1.0 / load_resistance)
+        self.input_fixed = bool(np.all(source_resistance == 0))
+        if not self.input_fixed:
+            branches.append(("RS", circuit.input, circuit.ground))
+            cond.append(1.0 / np.maximum(source_resistance, 1e-9))
+        a = circuit.incidence(tuple(branches))
+        g = np.stack(cond, axis=1)  # (B, k)
+        self.G = np.einsum("ik,bk,jk->bij", a, g, a)
+        idx = np.arange(n)
+        self.G[:, idx, idx] += GMIN
+        free = np.ones(n + 2, dtype=bool)
+        free[[circuit.ground, circuit.supply]] = False
+        if self.input_fixed:
+            free[circuit.input] = False
+        self.free = np.flatnonzero(free)
+        self.supply = supply
+        self.ambient = ambient
+        self.hfe25 = hfe25
+        self.bjts = circuit.bjts
+        self.rbb = np.array([q.device.r_bb for q in self.bjts])
+        self.sign = np.array([q.device.sign for q in self.bjts], dtype=float)
+        self.va = np.array([q.device.early_voltage for q in self.bjts])
+        self.theta = np.array([q.device.theta_ja or 0.0 for q in self.bjts])
+        self.vce_sat = np.array([q.device.vce_sat for q in self.bjts])
+
+    def device_params(self, tj: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(IS, VT, hFE) at junction temperatures tj (B, nQ)."""
+        is_ = np.empty_like(tj)
+        hfe = np.empty_like(tj)
+        for k, q in enumerate(self.bjts):
+            is_[:, k] = saturation_current(q.device, tj[:, k])
+            hfe[:, k] = hfe_at(q.device, self.hfe25[:, k], tj[:, k])
+        return is_, thermal_voltage(tj), hfe
+
+    def junctions(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        vbe = np.empty((self.B, len(self.bjts)))
+        vce = np.empty_like(vbe)
+        for k, q in enumerate(self.bjts):
+            s = q.device.sign
+            vbe[:, k] = s * (v[:, q.bi] - v[:, q.e])
+            vce[:, k] = s * (v[:, q.c] - v[:, q.e])
+        return vbe, vce
+
+    def evaluate(self, v: np.ndarray, tj: np.ndarray):
+        """KCL residual F (B, n+2), Jacobian J (B, n+2, n+2) and BJT quantities."""
+        F = np.einsum("bij,bj->bi", self.G, v)
+        J = self.G.copy()
+        is_, vt, hfe = self.device_params(tj)
+        vbe, vce = self.junctions(v)
+        ex, dex = _limexp(vbe / vt)
+        early = 1.0 + vce / self.va
+        ic = is_ * ex * early
+        gm = is_ * dex / vt * early
+        go = is_ * ex / self.va
+        ib = ic / hfe
+        for k, q in enumerate(self.bjts):
+            s = q.device.sign
+            # base current flows through r_bb between b and b'
+            if q.bi != q.b:
+                gx = 1.0 / q.device.r_bb
+                F[:, q.b] += gx * (v[:, q.b] - v[:, q.bi])
+                F[:, q.bi] -= gx * (v[:, q.b] - v[:, q.bi])
+                J[:, q.b, q.b] += gx
+                J[:, q.b, q.bi] -= gx
+                J[:, q.bi, q.b] -= gx
+                J[:, q.bi, q.bi] += gx
+            terms = (q.c, q.bi, q.e)
+            h = hfe[:, k]
+            i_loc = (ic[:, k], ib[:, k], -(ic[:, k] + ib[:, k]))
+            d_vbe = (gm[:, k], gm[:, k] / h, -gm[:, k] * (1.0 + 1.0 / h))
+            d_vce = (go[:, k], go[:, k] / h, -go[:, k] * (1.0 + 1.0 / h))
+            for t, node in enumerate(terms):
+                F[:, node] += s * i_loc[t]
+                # d(vbe)/dv = s*(0, 1, -1), d(vce)/dv = s*(1, 0, -1); s*s = 1
+                J[:, node, q.bi] += d_vbe[t]
+                J[:, node, q.e] -= d_vbe[t] + d_vce[t]
+                J[:, node, q.c] += d_vce[t]
+        return F, J, dict(ic=ic, ib=ib, vbe=vbe, vce=vce, hfe=hfe, vt=vt, is_=is_)
+
+
+def _newton(
+    model: _Model,
+    v: np.ndarray,
+    tj: np.ndarray,
+    supply_scale: float,
+    max_iter: int,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
+    """Damped Newton with junction limiting and interleaved self-heating update."""
+    free = model.free
+    v = v.copy()
+    v[:, model.c.supply] = model.supply * supply_scale
+    v[:, model.c.ground] = 0.0
+    if model.input_fixed:
+        v[:, model.c.input] = 0.0
+    converged = np.zeros(model.B, dtype=bool)
+    it = 0
+    for it in range(1, max_iter + 1):  # noqa: B007 - iteration count is reported
+        F, J, q = model.evaluate(v, tj)
+        Ff = F[:, free]
+        Jf = J[:, free[:, None], free[None, :]]
+        try:
+            dv = -np.linalg.solve(Jf, Ff[..., None])[..., 0]
+        except np.linalg.LinAlgError:
+            dv = -np.einsum("bij,bj->bi", np.linalg.pinv(Jf), Ff)
+        # junction limiting (after SPICE's pnjlim): a forward-biased junction may
+        # grow by only VT*ln(1 + dV/VT) in one step; the whole step is scaled.
+        step = np.zeros_like(v)
+        step[:, free] = dv
+        vbe_old = q["vbe"]
+        vbe_new, _ = model.junctions(v + step)
+        dvbe = vbe_new - vbe_old
+        vt = q["vt"]
+        limit = np.where(
+            (vbe_new > 0.3) & (dvbe > 2.0 * vt),
+            vt * np.log1p(np.maximum(dvbe, 0.0) / vt) / np.where(dvbe > 0, dvbe, 1.0),
+            1.0,
+        )
+        # also keep any node from jumping more than the supply in one step
+        span = np.max(np.abs(step), axis=1) / np.maximum(np.abs(model.supply), 1.0)
+        junction = np.min(limit, axis=1) if limit.size else 1.0
+        alpha = np.minimum(junction, 1.0 / np.maximum(span, 1.0))
+        v = v + alpha[:, None] * step
+        # self-heating: Tj follows the new dissipation (fixed point inside Newton)
+        _, vce_now = model.junctions(v)
+        p = np.maximum(vce_now, 0.0) * np.maximum(q["ic"], 0.0)
+        tj_new = model.ambient[:, None] + model.theta * p
+        dtj = np.abs(tj_new - tj)
+        tj = tj_new
+        scale = 1e-12 + 1e-9 * np.max(np.abs(v), axis=1)
+        small_step = np.max(np.abs(alpha[:, None] * step), axis=1) < 1e-9 + scale
+        fres = np.max(np.abs(Ff), axis=1) if Ff.size else np.zeros(model.B)
+        converged = small_step & (fres < 1e-10) & (np.max(dtj, axis=1, initial=0.0) < 1e-6) & (
+            alpha >= 1.0
+        )
+        if np.all(converged) or not np.all(np.isfinite(v)):
+            break
+    return v, tj, converged, it
+
+
+def solve_dc(
+    circuit: Circuit,
+    r_values: np.ndarray,
+    supply: np.ndarray,
+    hfe25: np.ndarray,
+    ambient: np.ndarray,
+    source_resistance: np.ndarray | float,
+    load_resistance: np.ndarray | float,
+    *,
+    v0: np.ndarray | None = None,
+    max_iter: int = 200,
+) -> DcBatch:
+    """Operating points for B conditions at once.
+
+    r_values (B, nR) in circuit.resistors order; supply, ambient (B,); hfe25 (B, nQ).
+    A cold start that fails is retried by stepping the supply up from 10 %.
+    """
+    supply = np.asarray(supply, dtype=float)
+    B = supply.shape[0]
+    src = np.broadcast_to(np.asarray(source_resistance, dtype=float), (B,))
+    load = np.broadcast_to(np.asarray(load_resistance, dtype=float), (B,))
+    model = _Model(
+        circuit,
+        np.asarray(r_values, dtype=float).reshape(B, -1),
+        supply,
+        np.asarray(hfe25, dtype=float).reshape(B, -1),
+        np.asarray(ambient, dtype=float),
+        src,
+        load,
+    )
+    n2 = circuit.n + 2
+    v = np.zeros((B, n2)) if v0 is None else np.array(v0, dtype=float)
+    tj = np.repeat(model.ambient[:, None], len(circuit.bjts), axis=1)
+    v, tj, ok, iters = _newton(model, v, tj, 1.0, max_iter)
+    if not np.all(ok):
+        # supply stepping from a cold start for the members that did not converge
+        bad = ~ok
+        vs = np.zeros((B, n2))
+        tjs = np.repeat(model.ambient[:, None], len(circuit.bjts), axis=1)
+        for scale in np.linspace(0.1, 1.0, 10):
+            vs, tjs, ok_s, k = _newton(model, vs, tjs, float(scale), max_iter)
+            iters += k
+        v[bad] = vs[bad]
+        tj[bad] = tjs[bad]
+        ok = ok | (ok_s & bad)
+    F, _, q = model.evaluate(v, tj)
+    # current out of the supply node into the network = KCL sum at that node
+    supply_current = F[:, circuit.supply]
+    return DcBatch(
+        v=v,
+        ic=q["ic"],
+        ib=q["ib"],
+        vbe=q["vbe"],
+        vce=q["vce"],
+        tj=tj,
+        hfe=q["hfe"],
+        supply_current=supply_current,
+        converged=ok & np.all(np.isfinite(v), axis=1),
+        iterations=iters,
+    )

@@ -1,0 +1,81 @@
+"""The command results of section 4: an analysis (and verdict) as a JSON-ready dict.
+
+One place builds this object, so `analyze --json`, the design file's
+`predicted` block and the report all quote the same figures.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from .analysis import Analysis, PointResult
+from .verdict import Verdict
+
+
+def _num(x: float) -> float | None:
+    """JSON-safe float: inf/nan become None (the text report says 'none' / 'n/a')."""
+    return float(x) if math.isfinite(x) else None
+
+
+def point_to_dict(p: PointResult) -> dict[str, Any]:
+    return {
+        "conditions": p.condition.to_dict(),
+        "converged": p.converged,
+        "active": p.active,
+        "swing_vpp": p.swing_vpp,
+        "swing_limit": p.swing_limit,
+        "supply_current": p.supply_current,
+        "transistors": {
+            ref: {
+                "ic": s.ic,
+                "vce": s.vce,
+                "vbe": s.vbe,
+                "ib": s.ib,
+                "tj": s.tj,
+                "hfe": s.hfe,
+                "power": s.power,
+                "active": s.active,
+            }
+            for ref, s in p.transistors.items()
+        },
+        "node_voltages": dict(p.node_voltages),
+    }
+
+
+def analysis_to_dict(analysis: Analysis, verdict: Verdict | None = None) -> dict[str, Any]:
+    """The object `stagesynth analyze --json` prints (section 4 keys first)."""
+    out: dict[str, Any] = {
+        "gain_db": analysis.gain_db,
+        "inverting": analysis.inverting,
+        "f_low": _num(analysis.f_low),
+        "f_high": _num(analysis.f_high),
+        "z_in": analysis.z_in,
+        "z_out": analysis.z_out,
+        "supply_current": analysis.supply_current,
+        "swing_vpp": analysis.swing_vpp,
+        "midband": analysis.midband,
+        "gain_phase_deg": math.degrees(math.atan2(analysis.gain.imag, analysis.gain.real)),
+        "converged": analysis.converged,
+        "nominal": point_to_dict(analysis.nominal),
+        "corners": [point_to_dict(c) for c in analysis.corners],
+    }
+    if verdict is not None:
+        out["meets_spec"] = verdict.meets_spec
+        out["checks"] = [c.to_dict() for c in verdict.checks]
+    return out
+
+
+def predicted_block(analysis: Analysis) -> dict[str, Any]:
+    """The design file's `predicted` figures (section 3), from the engine's analysis."""
+    return {
+        "gain_db": analysis.gain_db,
+        "inverting": analysis.inverting,
+        "f_low": _num(analysis.f_low),
+        "f_high": _num(analysis.f_high),
+        "z_in": analysis.z_in,
+        "z_out": analysis.z_out,
+        "swing_vpp": analysis.swing_vpp,
+        "supply_current": analysis.supply_current,
+        "supply_current_max": analysis.max_corner("supply_current"),
+    }
