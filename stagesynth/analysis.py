@@ -14,10 +14,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .ac import AcSystem, linearize
+from .ac import AcSystem
 from .circuit import Circuit, compile_design
-from .dc import DcBatch, solve_dc
 from .device import T_REF_C
+from .evaluate import Conditions, Figures, evaluate
 from .netlist import Design
 
 
@@ -107,6 +107,7 @@ class Analysis:
     nominal: PointResult
     corners: tuple[PointResult, ...]
     system: AcSystem = field(repr=False)  # nominal linearized stage, for sweeps and plots
+    figures: Figures | None = field(default=None, repr=False)  # batched form (K = 1)
 
     @property
     def gain_db(self) -> float:
@@ -164,109 +165,73 @@ def corner_conditions(design: Design, env: Environment) -> list[Condition]:
     return out
 
 
-def batch_values(design: Design, circuit: Circuit, count: int) -> tuple[np.ndarray, np.ndarray]:
-    """Resistor and capacitor values (count, nR) and (count, nC) in circuit order."""
+def batch_values(design: Design, circuit: Circuit) -> tuple[np.ndarray, np.ndarray]:
+    """Resistor and capacitor values (1, nR) and (1, nC) in circuit order."""
     vals = design.values()
-    r = np.array([vals[ref] for ref, _, _ in circuit.resistors], dtype=float)
-    c = np.array([vals[ref] for ref, _, _ in circuit.capacitors], dtype=float)
-    return np.tile(r, (count, 1)), np.tile(c, (count, 1))
+    r = np.array([[vals[ref] for ref, _, _ in circuit.resistors]], dtype=float)
+    c = np.array([[vals[ref] for ref, _, _ in circuit.capacitors]], dtype=float)
+    return r, c
 
 
-def solve_conditions(
-    design: Design, circuit: Circuit, conditions: list[Condition]
-) -> tuple[DcBatch, AcSystem]:
-    """Batched DC points and linearized stages for a list of conditions."""
-    b = len(conditions)
-    r, c = batch_values(design, circuit, b)
-    hfe25 = np.array([[cond.hfe[q.device_name] for q in circuit.bjts] for cond in conditions])
-    dc = solve_dc(
-        circuit,
-        r,
-        np.array([cond.supply for cond in conditions]),
-        hfe25.reshape(b, len(circuit.bjts)),
-        np.array([cond.ambient for cond in conditions]),
-        design.source_resistance,
-        design.load_resistance,
+def condition_arrays(circuit: Circuit, conditions: list[Condition]) -> Conditions:
+    """Condition list -> the arrays the batched evaluator takes."""
+    return Conditions(
+        hfe25=np.array(
+            [[cond.hfe[q.device_name] for q in circuit.bjts] for cond in conditions]
+        ).reshape(len(conditions), len(circuit.bjts)),
+        ambient=np.array([cond.ambient for cond in conditions]),
+        supply=np.array([cond.supply for cond in conditions]),
     )
-    system = linearize(
-        circuit, dc, r, c, design.source_resistance, design.load_resistance,
-        design.load_capacitance,
-    )
-    return dc, system
 
 
 def point_results(
-    circuit: Circuit,
-    conditions: list[Condition],
-    dc: DcBatch,
-    system: AcSystem,
-    midband: float,
+    circuit: Circuit, conditions: list[Condition], fig: Figures, k: int = 0
 ) -> list[PointResult]:
-    """Per-condition DC state and swing (section 2: cutoff or VCE = vce_sat, whichever first)."""
-    b = len(conditions)
-    ic_ratio, vce_ratio = system.swing_ratios(np.full(b, midband))
-    vce_sat = np.array([q.device.vce_sat for q in circuit.bjts])
-    active = (dc.vce >= vce_sat) & (dc.ic > 0) & dc.converged[:, None]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        a_cut = np.where(ic_ratio > 0, dc.ic / ic_ratio, np.inf)
-        a_sat = np.where(vce_ratio > 0, (dc.vce - vce_sat) / vce_ratio, np.inf)
-    results = []
+    """Per-condition DC state and swing of value set `k`, as readable records."""
     names = [*circuit.node_names, "ground", "supply"]
-    for i, cond in enumerate(conditions):
+    m = len(conditions)
+    nq = len(circuit.bjts)
+    dc = fig.dc
+    vce_sat = np.array([q.device.vce_sat for q in circuit.bjts])
+    results = []
+    for j, cond in enumerate(conditions):
+        i = k * m + j
         states = {}
-        for k, q in enumerate(circuit.bjts):
+        for q_i, q in enumerate(circuit.bjts):
             states[q.ref] = TransistorState(
-                ic=float(dc.ic[i, k]),
-                vce=float(dc.vce[i, k]),
-                vbe=float(dc.vbe[i, k]),
-                ib=float(dc.ib[i, k]),
-                tj=float(dc.tj[i, k]),
-                hfe=float(dc.hfe[i, k]),
-                power=float(dc.power[i, k]),
-                active=bool(active[i, k]),
-                swing_cut=float(a_cut[i, k]),
-                swing_sat=float(a_sat[i, k]),
+                ic=float(dc.ic[i, q_i]),
+                vce=float(dc.vce[i, q_i]),
+                vbe=float(dc.vbe[i, q_i]),
+                ib=float(dc.ib[i, q_i]),
+                tj=float(dc.tj[i, q_i]),
+                hfe=float(dc.hfe[i, q_i]),
+                power=float(dc.power[i, q_i]),
+                active=bool(
+                    dc.converged[i] and dc.vce[i, q_i] >= vce_sat[q_i] and dc.ic[i, q_i] > 0
+                ),
+                swing_cut=float(fig.a_cut[k, j, q_i]),
+                swing_sat=float(fig.a_sat[k, j, q_i]),
             )
-        all_active = bool(np.all(active[i])) if circuit.bjts else bool(dc.converged[i])
-        if all_active and circuit.bjts:
-            edges = np.concatenate([a_cut[i], a_sat[i]])
-            j = int(np.argmin(edges))
-            nq = len(circuit.bjts)
-            limit = f"{circuit.bjts[j % nq].ref} {'cutoff' if j < nq else 'saturation'}"
-            swing = 2.0 * float(edges[j])
+        if fig.active[k, j] and nq:
+            e = int(fig.swing_edge[k, j])
+            limit = f"{circuit.bjts[e % nq].ref} {'cutoff' if e < nq else 'saturation'}"
         else:
             limit = "not in the active region" if dc.converged[i] else "no DC solution"
-            swing = 0.0
         results.append(
             PointResult(
                 condition=cond,
                 converged=bool(dc.converged[i]),
-                active=all_active,
-                swing_vpp=swing,
+                active=bool(fig.active[k, j]),
+                swing_vpp=float(fig.swing_vpp[k, j]),
                 swing_limit=limit,
-                supply_current=float(dc.supply_current[i]),
+                supply_current=float(fig.supply_current[k, j]),
                 transistors=states,
                 node_voltages={
-                    n: float(dc.v[i, j]) for j, n in enumerate(names) if not n.endswith(".b'")
+                    n: float(dc.v[i, c]) for c, n in enumerate(names) if not n.endswith(".b'")
                 },
             )
         )
     return results
-
-
-def find_midband(system: AcSystem, band: tuple[float, float] | None) -> float:
-    """Geometric mean of the band; without one, of the corners around the gain peak."""
-    if band is not None:
-        return math.sqrt(band[0] * band[1])
-    grid = np.logspace(-2, 11, 14 * 24)
-    mag = np.abs(system.gain(grid[None, :]))[0]
-    fm = float(grid[int(np.argmax(mag))])
-    for _ in range(3):
-        _, lo, hi = system.corners(np.array([fm]))
-        lo_f = float(lo[0]) if lo[0] > 0 else 1e-2
-        hi_f = float(hi[0]) if np.isfinite(hi[0]) else 1e11
-        fm = math.sqrt(lo_f * hi_f)
-    return fm
 
 
 def analyze(design: Design, spec=None, environment: Environment | None = None) -> Analysis:
@@ -274,39 +239,29 @@ def analyze(design: Design, spec=None, environment: Environment | None = None) -
     env = environment or Environment.for_design(design, spec)
     circuit = compile_design(design)
     conditions = corner_conditions(design, env)
-    dc, system = solve_conditions(design, circuit, conditions)
-    nominal_system = _select(system, 0)
-    midband = find_midband(nominal_system, env.band)
-    _, f_low, f_high = nominal_system.corners(np.array([midband]))
-    gain = complex(nominal_system.gain(np.array([[midband]]))[0, 0])
-    z_in = float(np.abs(nominal_system.z_in(np.array([[midband]]))[0, 0]))
-    z_out = float(np.abs(nominal_system.z_out(np.array([[midband]]))[0, 0]))
-    points = point_results(circuit, conditions, dc, system, midband)
+    r, c = batch_values(design, circuit)
+    fig = evaluate(
+        circuit,
+        r,
+        c,
+        condition_arrays(circuit, conditions),
+        source_resistance=design.source_resistance,
+        load_resistance=design.load_resistance,
+        load_capacitance=design.load_capacitance,
+        band=env.band,
+    )
+    points = point_results(circuit, conditions, fig)
     return Analysis(
         design=design,
         environment=env,
-        midband=midband,
-        gain=gain,
-        f_low=float(f_low[0]),
-        f_high=float(f_high[0]),
-        z_in=z_in,
-        z_out=z_out,
+        midband=float(fig.midband[0]),
+        gain=complex(fig.gain[0]),
+        f_low=float(fig.f_low[0]),
+        f_high=float(fig.f_high[0]),
+        z_in=float(fig.z_in[0]),
+        z_out=float(fig.z_out[0]),
         nominal=points[0],
         corners=tuple(points[1:]),
-        system=nominal_system,
-    )
-
-
-def _select(system: AcSystem, i: int) -> AcSystem:
-    """One member of a batched system, kept as a batch of one."""
-    s = slice(i, i + 1)
-    return AcSystem(
-        circuit=system.circuit,
-        G=system.G[s],
-        C=system.C[s],
-        gm=system.gm[s],
-        r_o=system.r_o[s],
-        source_resistance=system.source_resistance[s],
-        load_resistance=system.load_resistance[s],
-        load_capacitance=system.load_capacitance[s],
+        system=fig.nominal,
+        figures=fig,
     )

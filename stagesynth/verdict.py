@@ -1,9 +1,11 @@
-"""Judge an analysed design against a spec, one row per requirement.
+"""Judge analysed designs against a spec, one row per requirement.
 
 Nominal figures judge gain, corners and impedances; every corner judges the
-active region, swing, supply current and the transistor's absolute ratings
-(section 2 of the contract). Margins are normalized so that synthesis can
-compare requirements: positive passes, 0.1 means 10 % of the limit to spare.
+active region, swing, supply current and the transistors' absolute ratings
+(section 2 of the contract). The core, `assess`, works on batched Figures so
+that `analyze`, the synthesizer and the Monte Carlo share one set of rules.
+Margins are normalized so that requirements can be compared: positive passes,
+0.1 means 10 % of the limit to spare.
 """
 
 from __future__ import annotations
@@ -11,30 +13,140 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
+
 from .analysis import Analysis
+from .circuit import Circuit
+from .evaluate import Figures
 from .spec import Spec
 
 
 @dataclass(frozen=True)
-class Check:
+class Row:
+    """One requirement over K value sets: value, ok and margin are (K,) arrays."""
+
     name: str
-    value: float | bool
-    limit: float | tuple[float, float] | str
-    ok: bool
-    margin: float  # normalized: > 0 passes
+    value: np.ndarray
+    limit: float | tuple[float, float] | str | bool
+    ok: np.ndarray
+    margin: np.ndarray
     relation: str  # ">=", "<=", "within", "is"
     unit: str
     where: str  # "nominal" or "every corner"
+    condition: np.ndarray | None = None  # (K,) index of the deciding condition
+
+
+def _at_least(name, value, limit, unit, where, cond=None) -> Row:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        margin = (value - limit) / limit if limit > 0 else np.where(value >= limit, np.inf, -np.inf)
+    return Row(name, value, limit, value >= limit, margin, ">=", unit, where, cond)
+
+
+def _at_most(name, value, limit, unit, where, cond=None) -> Row:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        margin = (limit - value) / limit if limit > 0 else np.where(value <= limit, np.inf, -np.inf)
+    return Row(name, value, limit, value <= limit, margin, "<=", unit, where, cond)
+
+
+def assess(fig: Figures, spec: Spec, circuit: Circuit) -> list[Row]:
+    """Every requirement of `spec` for the K value sets in `fig` (condition 0 = nominal)."""
+    r = spec.require
+    rows: list[Row] = []
+    tol = r.gain_tolerance_db
+    gain_db = fig.gain_db
+    err = gain_db - r.gain_db
+    rows.append(
+        Row("gain", gain_db, (r.gain_db - tol, r.gain_db + tol), np.abs(err) <= tol,
+            (tol - np.abs(err)) / tol, "within", "dB", "nominal")
+    )
+    rows.append(_at_most("f_low", fig.f_low, r.f_low, "Hz", "nominal"))
+    rows.append(_at_least("f_high", fig.f_high, r.f_high, "Hz", "nominal"))
+    if r.z_in > 0:
+        rows.append(_at_least("z_in", fig.z_in, r.z_in, "Ω", "nominal"))
+    if r.z_out is not None:
+        rows.append(_at_most("z_out", fig.z_out, r.z_out, "Ω", "nominal"))
+    if r.inverting != "any":
+        want = r.inverting == "yes"
+        ok = fig.inverting == want
+        rows.append(Row("inverting", fig.inverting, r.inverting, ok,
+                        np.where(ok, 1.0, -1.0), "is", "", "nominal"))
+    corners = slice(1, None)  # condition 0 is the nominal point
+    active = np.all(fig.active[:, corners], axis=1)
+    first_bad = np.argmin(fig.active[:, corners], axis=1) + 1
+    rows.append(Row("active", active, True, active, np.where(active, 1.0, -1.0), "is", "",
+                    "every corner", first_bad))
+    if r.swing_vpp > 0:
+        sw = fig.swing_vpp[:, corners]
+        j = np.argmin(sw, axis=1)
+        rows.append(_at_least("swing", sw[np.arange(sw.shape[0]), j], r.swing_vpp, "Vpp",
+                              "every corner", j + 1))
+    if r.supply_current is not None:
+        cur = fig.supply_current[:, corners]
+        j = np.argmax(cur, axis=1)
+        rows.append(_at_most("supply_current", cur[np.arange(cur.shape[0]), j],
+                             r.supply_current, "A", "every corner", j + 1))
+    rows.extend(_rating_rows(fig, circuit))
+    return rows
+
+
+def _rating_rows(fig: Figures, circuit: Circuit) -> list[Row]:
+    """Absolute ratings of each transistor at its worst corner, when the device gives them."""
+    rows = []
+    supply_max = float(np.max(fig.dc.v[:, circuit.supply]))
+    for qi, q in enumerate(circuit.bjts):
+        for field, attr, unit in (("ic_max", "ic", "A"), ("vce_max", "vce", "V"),
+                                  ("p_max", "power", "W")):
+            rating = getattr(q.device, field)
+            if rating is None:
+                continue
+            vals = fig.per_condition(attr)[:, 1:, qi]
+            j = np.argmax(vals, axis=1)
+            worst = vals[np.arange(vals.shape[0]), j]
+            if field == "vce_max":
+                # at cutoff the collector-emitter voltage reaches the supply: judge that
+                worst = np.maximum(worst, supply_max)
+            rows.append(_at_most(f"{q.ref}.{field}", worst, rating, unit, "every corner", j + 1))
+    return rows
+
+
+def meets(rows: list[Row]) -> np.ndarray:
+    """(K,) bool: every requirement passes."""
+    return np.all(np.stack([row.ok for row in rows]), axis=0)
+
+
+def smallest_margin(rows: list[Row], skip: tuple[str, ...] = ()) -> np.ndarray:
+    """(K,) the smallest normalized margin over the requirements not in `skip`."""
+    kept = [row.margin for row in rows if row.name not in skip]
+    return np.min(np.stack(kept), axis=0) if kept else np.full(1, np.inf)
+
+
+# ---------------------------------------------------------------------------
+# Single-design form: readable rows for reports and the CLI
+# ---------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Check:
+    name: str
+    value: float | bool
+    limit: float | tuple[float, float] | str | bool
+    ok: bool
+    margin: float  # normalized: > 0 passes
+    relation: str
+    unit: str
+    where: str
     detail: str = ""
 
     def to_dict(self) -> dict:
         limit = list(self.limit) if isinstance(self.limit, tuple) else self.limit
+        value = self.value
+        if isinstance(value, float) and not math.isfinite(value):
+            value = None
+        margin = self.margin if math.isfinite(self.margin) else None
         return {
             "name": self.name,
-            "value": self.value,
+            "value": value,
             "limit": limit,
             "ok": self.ok,
-            "margin": self.margin,
+            "margin": margin,
             "relation": self.relation,
             "unit": self.unit,
             "where": self.where,
@@ -65,108 +177,34 @@ class Verdict:
         raise KeyError(name)
 
 
-def _at_least(name, value, limit, unit, where, detail="") -> Check:
-    margin = (value - limit) / limit if limit > 0 else (math.inf if value >= limit else -math.inf)
-    return Check(name, value, limit, value >= limit, margin, ">=", unit, where, detail)
-
-
-def _at_most(name, value, limit, unit, where, detail="") -> Check:
-    if limit > 0:
-        margin = (limit - value) / limit
-    else:  # a zero limit: pass or fail outright
-        margin = math.inf if value <= limit else -math.inf
-    return Check(name, value, limit, value <= limit, margin, "<=", unit, where, detail)
-
-
 def judge(analysis: Analysis, spec: Spec) -> Verdict:
-    """Every requirement of `spec` as a Check against `analysis`."""
-    r = spec.require
-    checks: list[Check] = []
-    target = r.gain_db
-    tol = r.gain_tolerance_db
-    err = analysis.gain_db - target
-    checks.append(
-        Check(
-            "gain",
-            analysis.gain_db,
-            (target - tol, target + tol),
-            abs(err) <= tol,
-            (tol - abs(err)) / tol,
-            "within",
-            "dB",
-            "nominal",
-            f"{err:+.2f} dB from {target:.2f} dB",
-        )
-    )
-    # corners: margins on a log scale would hide nothing here; relative is clearer
-    checks.append(_at_most("f_low", analysis.f_low, r.f_low, "Hz", "nominal"))
-    checks.append(_at_least("f_high", analysis.f_high, r.f_high, "Hz", "nominal"))
-    if r.z_in > 0:
-        checks.append(_at_least("z_in", analysis.z_in, r.z_in, "Ω", "nominal"))
-    if r.z_out is not None:
-        checks.append(_at_most("z_out", analysis.z_out, r.z_out, "Ω", "nominal"))
-    if r.inverting != "any":
-        want = r.inverting == "yes"
-        checks.append(
-            Check("inverting", analysis.inverting, r.inverting, analysis.inverting == want,
-                  1.0 if analysis.inverting == want else -1.0, "is", "", "nominal")
-        )
-    worst = min(analysis.corners, key=lambda c: c.swing_vpp)
-    checks.append(
-        Check(
-            "active",
-            analysis.all_active,
-            True,
-            analysis.all_active,
-            1.0 if analysis.all_active else -1.0,
-            "is",
-            "",
-            "every corner",
-            "" if analysis.all_active else _inactive_detail(analysis),
-        )
-    )
-    if r.swing_vpp > 0:
-        checks.append(
-            _at_least("swing", worst.swing_vpp, r.swing_vpp, "Vpp", "every corner",
-                      f"{worst.condition.label}: {worst.swing_limit}")
-        )
-    if r.supply_current is not None:
-        top = max(analysis.corners, key=lambda c: c.supply_current)
-        checks.append(
-            _at_most("supply_current", top.supply_current, r.supply_current, "A",
-                     "every corner", top.condition.label)
-        )
-    checks.extend(_rating_checks(analysis))
-    return Verdict(tuple(checks))
+    """Every requirement of `spec` as a readable Check for one analysed design."""
+    from .circuit import compile_design
 
-
-def _inactive_detail(analysis: Analysis) -> str:
-    for c in analysis.corners:
-        if not c.active:
-            bad = [ref for ref, s in c.transistors.items() if not s.active]
-            why = f"{', '.join(bad)} out of the active region" if c.converged else "no DC solution"
-            return f"{c.condition.label}: {why}"
-    return ""
-
-
-def _rating_checks(analysis: Analysis) -> list[Check]:
-    """Absolute ratings of each transistor at the worst corner, when the device gives them."""
+    fig = analysis.figures
+    rows = assess(fig, spec, compile_design(analysis.design))
+    points = (analysis.nominal, *analysis.corners)
     checks = []
-    design = analysis.design
-    for part in design.bjts:
-        dev = design.devices[part.device]
-        for field, attr, unit in (("ic_max", "ic", "A"), ("vce_max", "vce", "V"),
-                                  ("p_max", "power", "W")):
-            rating = getattr(dev, field)
-            if rating is None:
-                continue
-            worst = max(analysis.corners, key=lambda c, a=attr: getattr(c.transistors[part.ref], a))
-            value = getattr(worst.transistors[part.ref], attr)
-            if field == "vce_max":
-                # the collector can swing up to the supply: judge the highest supply seen
-                value = max(value, max(c.condition.supply for c in analysis.corners))
-            checks.append(
-                _at_most(f"{part.ref}.{field}", value, rating, unit, "every corner",
-                         worst.condition.label)
-            )
-    return checks
+    for row in rows:
+        value = row.value[0]
+        value = bool(value) if row.relation == "is" else float(value)
+        detail = ""
+        if row.name == "gain":
+            detail = f"{float(row.value[0]) - spec.require.gain_db:+.2f} dB from target"
+        elif row.condition is not None:
+            p = points[int(row.condition[0])]
+            detail = p.condition.label
+            if row.name == "swing":
+                detail += f": {p.swing_limit}"
+            elif row.name == "active" and not bool(row.ok[0]):
+                bad = [ref for ref, s in p.transistors.items() if not s.active]
+                why = f"{', '.join(bad)} out of the active region" if p.converged else (
+                    "no DC solution")
+                detail += f": {why}"
+            elif row.name == "active":
+                detail = ""
+        checks.append(
+            Check(row.name, value, row.limit, bool(row.ok[0]), float(row.margin[0]),
+                  row.relation, row.unit, row.where, detail)
+        )
+    return Verdict(tuple(checks))

@@ -1,0 +1,178 @@
+"""Batched figures of merit: K value sets of one circuit, each at M conditions, in one go.
+
+This is the single code path behind `analyze` (K = 1), the synthesizer's
+candidate search (K = hundreds) and the Monte Carlo (K = thousands): DC points
+for all K*M members in one batched Newton solve, AC at the nominal condition
+(and the swing ratios at every condition) as batched MNA solves.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .ac import AcSystem, linearize
+from .circuit import Circuit
+from .dc import DcBatch, solve_dc
+
+
+@dataclass(frozen=True)
+class Conditions:
+    """M operating conditions as arrays: hFE at 25 degC per transistor, ambient, supply."""
+
+    hfe25: np.ndarray  # (M, nQ)
+    ambient: np.ndarray  # (M,)
+    supply: np.ndarray  # (M,)
+
+    @property
+    def count(self) -> int:
+        return self.supply.shape[0]
+
+
+@dataclass(frozen=True)
+class Figures:
+    """Everything the verdict needs, for K value sets (first axis) at M conditions."""
+
+    midband: np.ndarray  # (K,)
+    gain: np.ndarray  # (K,) complex, nominal condition (index 0)
+    f_low: np.ndarray  # (K,)
+    f_high: np.ndarray  # (K,)
+    z_in: np.ndarray  # (K,)
+    z_out: np.ndarray  # (K,)
+    supply_current: np.ndarray  # (K, M)
+    swing_vpp: np.ndarray  # (K, M), 0 where not active
+    swing_edge: np.ndarray  # (K, M) int: index j of the limiting edge (j < nQ cutoff of Q_j)
+    active: np.ndarray  # (K, M) bool: every transistor active and DC converged
+    converged: np.ndarray  # (K, M) bool
+    dc: DcBatch  # members ordered k*M + m
+    nominal: AcSystem  # the K linearized stages at the nominal condition
+    a_cut: np.ndarray  # (K, M, nQ) peak load amplitude to cutoff
+    a_sat: np.ndarray  # (K, M, nQ) peak load amplitude to VCE = vce_sat
+
+    @property
+    def gain_db(self) -> np.ndarray:
+        return 20.0 * np.log10(np.maximum(np.abs(self.gain), 1e-300))
+
+    @property
+    def inverting(self) -> np.ndarray:
+        return np.cos(np.angle(self.gain)) < 0.0
+
+    def per_condition(self, name: str) -> np.ndarray:
+        """A DC quantity (ic, vce, tj, ...) reshaped to (K, M, nQ)."""
+        arr = getattr(self.dc, name)
+        k, m = self.supply_current.shape
+        return arr.reshape(k, m, *arr.shape[1:])
+
+
+def evaluate(
+    circuit: Circuit,
+    r_values: np.ndarray,
+    c_values: np.ndarray,
+    conditions: Conditions,
+    *,
+    source_resistance: float,
+    load_resistance: float,
+    load_capacitance: float,
+    band: tuple[float, float] | None,
+    corners: bool = True,
+) -> Figures:
+    """Figures for K value sets (rows of r_values, c_values) at every condition.
+
+    Condition 0 is the nominal one: gain, corners and impedances are taken there.
+    `corners=False` skips the -3 dB search (for callers that only need DC and gain).
+    """
+    r_values = np.atleast_2d(np.asarray(r_values, dtype=float))
+    c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
+    k = r_values.shape[0]
+    m = conditions.count
+    nq = len(circuit.bjts)
+    # member index = k*M + m
+    r_rep = np.repeat(r_values, m, axis=0)
+    c_rep = np.repeat(c_values, m, axis=0)
+    supply = np.tile(conditions.supply, k)
+    ambient = np.tile(conditions.ambient, k)
+    hfe25 = np.tile(conditions.hfe25, (k, 1))
+    dc = solve_dc(circuit, r_rep, supply, hfe25, ambient, source_resistance, load_resistance)
+    system = linearize(
+        circuit, dc, r_rep, c_rep, source_resistance, load_resistance, load_capacitance
+    )
+    nominal = _members(system, np.arange(k) * m)
+
+    if band is not None:
+        midband = np.full(k, math.sqrt(band[0] * band[1]))
+    else:
+        midband = np.array([_free_midband(_members(nominal, np.array([i]))) for i in range(k)])
+    if corners:
+        _, f_low, f_high = nominal.corners(midband)
+    else:
+        f_low = np.full(k, np.nan)
+        f_high = np.full(k, np.nan)
+    fm = midband[:, None]
+    gain = nominal.gain(fm)[:, 0]
+    z_in = np.abs(nominal.z_in(fm)[:, 0])
+    z_out = np.abs(nominal.z_out(fm)[:, 0])
+
+    # swing at every condition (section 2): cutoff or saturation, whichever comes first
+    ic_ratio, vce_ratio = system.swing_ratios(np.repeat(midband, m))
+    vce_sat = np.array([q.device.vce_sat for q in circuit.bjts])
+    q_active = (dc.vce >= vce_sat) & (dc.ic > 0) & dc.converged[:, None]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a_cut = np.where(ic_ratio > 0, dc.ic / ic_ratio, np.inf)
+        a_sat = np.where(vce_ratio > 0, (dc.vce - vce_sat) / vce_ratio, np.inf)
+    edges = np.concatenate([a_cut, a_sat], axis=1)  # (K*M, 2nQ)
+    edge = np.argmin(edges, axis=1) if nq else np.zeros(k * m, dtype=int)
+    all_active = np.all(q_active, axis=1) & dc.converged
+    swing = np.where(all_active, 2.0 * np.min(edges, axis=1, initial=np.inf), 0.0)
+    if nq == 0:
+        swing = np.zeros(k * m)
+    return Figures(
+        midband=midband,
+        gain=gain,
+        f_low=f_low,
+        f_high=f_high,
+        z_in=z_in,
+        z_out=z_out,
+        supply_current=dc.supply_current.reshape(k, m),
+        swing_vpp=swing.reshape(k, m),
+        swing_edge=edge.reshape(k, m),
+        active=all_active.reshape(k, m),
+        converged=dc.converged.reshape(k, m),
+        dc=dc,
+        nominal=nominal,
+        a_cut=a_cut.reshape(k, m, nq),
+        a_sat=a_sat.reshape(k, m, nq),
+    )
+
+
+def _members(system: AcSystem, idx: np.ndarray) -> AcSystem:
+    """The batch members `idx` of a linearized system, as a smaller batch."""
+    return AcSystem(
+        circuit=system.circuit,
+        G=system.G[idx],
+        C=system.C[idx],
+        gm=system.gm[idx],
+        r_o=system.r_o[idx],
+        source_resistance=system.source_resistance[idx],
+        load_resistance=system.load_resistance[idx],
+        load_capacitance=system.load_capacitance[idx],
+    )
+
+
+def member(system: AcSystem, i: int) -> AcSystem:
+    """One member of a batched system, kept as a batch of one (for sweeps and plots)."""
+    return _members(system, np.array([i]))
+
+
+def _free_midband(system: AcSystem) -> float:
+    """Without a required band: geometric mean of the corners around the gain peak."""
+    grid = np.logspace(-2, 11, 14 * 24)
+    mag = np.abs(system.gain(grid[None, :]))[0]
+    fm = float(grid[int(np.argmax(mag))])
+    for _ in range(3):
+        _, lo, hi = system.corners(np.array([fm]))
+        lo_f = float(lo[0]) if lo[0] > 0 else 1e-2
+        hi_f = float(hi[0]) if np.isfinite(hi[0]) else 1e11
+        fm = math.sqrt(lo_f * hi_f)
+    return fm
