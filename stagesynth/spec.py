@@ -7,10 +7,32 @@ TOML file; every error names the file, the key path and what would be accepted.
 
 from __future__ import annotations
 
+import dataclasses
+import difflib
+import json
 import math
+import tomllib
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from importlib import resources
+from pathlib import Path
+from typing import Any
 
-from .device import Device
+from . import eseries
+from .device import PRESETS, Device
+from .errors import StageError
+from .units import (
+    accepted_for,
+    format_quantity,
+    parse_db,
+    parse_fraction,
+    parse_gain,
+    parse_number,
+    parse_per_kelvin,
+    parse_quantity,
+    parse_swing,
+    parse_temperature,
+)
 
 
 @dataclass(frozen=True)
@@ -72,3 +94,501 @@ class Spec:
     parts: Parts = Parts()
     title: str = ""
     path: str = ""  # the file it was read from, for messages
+
+
+# ---------------------------------------------------------------------------
+# Loading and validation (section 1 of the contract)
+# ---------------------------------------------------------------------------
+_SECTION_KEYS: dict[str, tuple[str, ...]] = {
+    "supply": ("voltage", "tolerance"),
+    "source": ("resistance",),
+    "load": ("resistance", "capacitance"),
+    "require": (
+        "gain", "gain_tolerance", "f_low", "f_high", "z_in", "swing", "supply_current",
+        "ambient", "inverting", "z_out", "yield",
+    ),
+    "parts": ("resistors", "resistor_tolerance", "capacitors", "capacitor_tolerance"),
+}
+TOP_KEYS: tuple[str, ...] = ("title", "supply", "source", "load", "require", "transistor", "parts")
+REQUIRED_DEVICE_KEYS: tuple[str, ...] = ("polarity", "hfe", "vbe", "ft", "c_cb")
+# [transistor] keys: quantity keys map to (unit or parser, lower bound: ">0", ">=0" or "").
+_DEVICE_QUANTITIES: dict[str, tuple[str, str]] = {
+    "vbe": ("V", ">0"),
+    "vbe_current": ("A", ">0"),
+    "early_voltage": ("V", ">0"),
+    "ft": ("Hz", ">0"),
+    "c_cb": ("F", ">0"),
+    "r_bb": ("Ω", ">=0"),
+    "vce_sat": ("V", ">=0"),
+    "ic_max": ("A", ">0"),
+    "vce_max": ("V", ">0"),
+    "p_max": ("W", ">0"),
+    "theta_ja": ("K/W", ">0"),
+    "vbe_tempco": ("V/K", ""),
+    "hfe_tempco": ("%/K", ""),
+}
+DEVICE_KEYS: tuple[str, ...] = (
+    "preset", "file", "name", "polarity", "hfe", "hfe_typ", *_DEVICE_QUANTITIES,
+)
+_MAGNITUDE_KEYS = ("vbe", "vce_sat", "vce_max")
+_ALL_SECTIONS = {**_SECTION_KEYS, "transistor": DEVICE_KEYS}
+
+
+def _where(prefix: str, key: str) -> str:
+    return f"{prefix}.{key}" if prefix else key
+
+
+def _did_you_mean(word: str, choices: Sequence[str]) -> str:
+    """"; did you mean 'x'?" for the closest choice (case-insensitive), else ""."""
+    lowered = {c.lower(): c for c in choices}
+    match = difflib.get_close_matches(word.lower(), list(lowered), n=1, cutoff=0.6)
+    return f"; did you mean '{lowered[match[0]]}'?" if match else ""
+
+
+def _check_keys(table: Mapping[str, Any], allowed: Sequence[str], prefix: str, file: str) -> None:
+    """Refuse unknown keys, with a hint: a near spelling, or the section the key belongs in."""
+    for key in table:
+        if key in allowed:
+            continue
+        hint = _did_you_mean(key, allowed)
+        if not hint:
+            homes = [s for s, keys in _ALL_SECTIONS.items() if key in keys and s != prefix]
+            if homes:
+                hint = f"; '{key}' belongs in [{homes[0]}]"
+        raise StageError(f"unknown key{hint}", file=file, key=_where(prefix, key),
+                         accepted=", ".join(allowed))
+
+
+def _table(data: Mapping[str, Any], name: str, file: str, *, required: bool) -> Mapping[str, Any]:
+    if name not in data:
+        if required:
+            keys = ", ".join(_SECTION_KEYS.get(name, ()))
+            raise StageError(f"the section [{name}] is missing", file=file, key=name,
+                             accepted=f"a [{name}] table with {keys}")
+        return {}
+    value = data[name]
+    if not isinstance(value, Mapping):
+        raise StageError(f"must be a table [{name}], not {value!r}", file=file, key=name,
+                         accepted=f"[{name}] on its own line, then its keys")
+    return value
+
+
+def _missing(file: str, key: str, example: str) -> StageError:
+    return StageError("is missing (required)", file=file, key=key, accepted=f"e.g. {example}")
+
+
+def _bound(value: float, rule: str, file: str, key: str, unit: str, accepted: str) -> float:
+    """Apply a sign rule (">0", ">=0" or "") with a message that prints the value read."""
+    shown = format_quantity(value, unit)
+    if rule == ">0" and value <= 0:
+        raise StageError(f"must be greater than zero, got {shown}", file=file, key=key,
+                         accepted=accepted)
+    if rule == ">=0" and value < 0:
+        raise StageError(f"must not be negative, got {shown}", file=file, key=key,
+                         accepted=accepted)
+    return value
+
+
+def _quantity(table: Mapping[str, Any], key: str, prefix: str, file: str, unit: str,
+              rule: str, default: Any = None, *, required_example: str = "") -> Any:
+    """Read table[key] in `unit`; default when absent; StageError when required and absent."""
+    where = _where(prefix, key)
+    if key not in table:
+        if required_example:
+            raise _missing(file, where, required_example)
+        return default
+    value = parse_quantity(table[key], unit, key=where, file=file)
+    return _bound(value, rule, file, where, unit, accepted_for(unit))
+
+
+def _tolerance(table: Mapping[str, Any], key: str, prefix: str, file: str, default: float) -> float:
+    """A tolerance: a fraction in [0, 1)."""
+    where = _where(prefix, key)
+    if key not in table:
+        return default
+    value = parse_fraction(table[key], key=where, file=file)
+    if not value < 1:
+        raise StageError(f"must be below 100 %, got {format_quantity(value, '%')}", file=file,
+                         key=where, accepted="a tolerance such as '5 %' (0 to below 100 %)")
+    return value
+
+
+def _hfe_spread(value: Any, file: str, key: str) -> tuple[float, float]:
+    accepted = "the production spread [min, max] at 25 °C, e.g. [100, 300]"
+    if not isinstance(value, list | tuple):
+        hint = ""
+        if isinstance(value, int | float | str) and not isinstance(value, bool):
+            hint = f"; for one fixed value write [{value}, {value}]"
+        raise StageError(f"{value!r} is not a [min, max] pair{hint}", file=file, key=key,
+                         accepted=accepted)
+    if len(value) != 2:
+        raise StageError(f"{value!r} has {len(value)} entries, not 2", file=file, key=key,
+                         accepted=accepted)
+    lo, hi = (parse_number(v, key=key, file=file) for v in value)
+    if not 0 < lo <= hi:
+        raise StageError(f"{value!r} must have 0 < min <= max", file=file, key=key,
+                         accepted=accepted)
+    return lo, hi
+
+
+def _read_toml(path: Path, *, file_key: tuple[str, str] | None = None) -> dict[str, Any]:
+    """Parse a TOML file; every failure is one StageError (no traceback).
+
+    `file_key` = (referring file, key) names where a missing file was referenced from.
+    """
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        if file_key:
+            raise StageError(f"file {str(path)!r} not found", file=file_key[0], key=file_key[1],
+                             accepted="a path relative to the spec file") from None
+        raise StageError("file not found", file=str(path)) from None
+    except IsADirectoryError:
+        raise StageError("is a directory, not a TOML file", file=str(path)) from None
+    except OSError as exc:
+        raise StageError(f"cannot be read: {exc.strerror}", file=str(path)) from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise StageError(f"is not UTF-8 text (byte {exc.start})", file=str(path),
+                         accepted="a UTF-8 TOML file") from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise StageError(f"is not valid TOML: {exc}", file=str(path),
+                         accepted="TOML, e.g. key = \"value\" lines under [section] headers"
+                         ) from None
+
+
+def device_from_mapping(
+    data: Mapping[str, Any],
+    file: str,
+    key_prefix: str = "transistor",
+    *,
+    base_dir: str | Path | None = None,
+    allow_file: bool = True,
+) -> Device:
+    """Build a Device from [transistor]-style keys: a preset or a device file, then overrides.
+
+    Quantities take units as in the spec ("0.65 V", "250 MHz"); `vbe` and `vce_sat` are
+    magnitudes for either polarity. A `file` is read relative to `base_dir` (default: the
+    directory of `file`). Giving `hfe` without `hfe_typ` over a preset drops the preset's
+    hfe_typ, so the nominal becomes sqrt(min * max) of the new spread.
+    """
+    if not isinstance(data, Mapping):
+        raise StageError(f"must be a table, not {data!r}", file=file, key=key_prefix or None,
+                         accepted="keys such as polarity, hfe, vbe, ft, c_cb")
+    if not allow_file and "file" in data:
+        raise StageError("a device file cannot refer to another file", file=file,
+                         key=_where(key_prefix, "file"), accepted="preset = \"...\" or the fields")
+    allowed = DEVICE_KEYS if allow_file else tuple(k for k in DEVICE_KEYS if k != "file")
+    _check_keys(data, allowed, key_prefix, file)
+    presets = ", ".join(PRESETS)
+
+    base: Device | None = None
+    if "preset" in data and "file" in data:
+        raise StageError("give either preset or file, not both", file=file,
+                         key=_where(key_prefix, "file"),
+                         accepted="preset = \"generic-npn\" or file = \"my-device.toml\"")
+    if "preset" in data:
+        name = data["preset"]
+        if not isinstance(name, str) or name.strip().lower() not in PRESETS:
+            hint = _did_you_mean(str(name), list(PRESETS)) if isinstance(name, str) else ""
+            raise StageError(f"{name!r} is not a built-in preset{hint}", file=file,
+                             key=_where(key_prefix, "preset"), accepted=presets)
+        base = PRESETS[name.strip().lower()]
+    elif "file" in data:
+        rel = data["file"]
+        where = _where(key_prefix, "file")
+        if not isinstance(rel, str) or not rel.strip():
+            raise StageError(f"{rel!r} is not a file name", file=file, key=where,
+                             accepted="a path to a device TOML file, relative to this file")
+        folder = Path(base_dir) if base_dir is not None else Path(file).parent
+        base = load_device_file(folder / rel, _referrer=(file, where))
+
+    values: dict[str, Any] = {}
+    if "name" in data:
+        if not isinstance(data["name"], str):
+            raise StageError(f"{data['name']!r} is not text", file=file,
+                             key=_where(key_prefix, "name"), accepted="a free-text name")
+        values["name"] = data["name"]
+    if "polarity" in data:
+        polarity = data["polarity"]
+        norm = polarity.strip().lower() if isinstance(polarity, str) else None
+        if norm not in ("npn", "pnp"):
+            raise StageError(f"{polarity!r} is not a polarity", file=file,
+                             key=_where(key_prefix, "polarity"), accepted='"npn" or "pnp"')
+        values["polarity"] = norm
+    if "hfe" in data:
+        values["hfe_min"], values["hfe_max"] = _hfe_spread(
+            data["hfe"], file, _where(key_prefix, "hfe"))
+        if "hfe_typ" not in data:
+            values["hfe_typ"] = None
+    if "hfe_typ" in data:
+        where = _where(key_prefix, "hfe_typ")
+        typ = parse_number(data["hfe_typ"], key=where, file=file)
+        values["hfe_typ"] = _bound(typ, ">0", file, where, "", "a typical hFE such as 175")
+    for key, (unit, rule) in _DEVICE_QUANTITIES.items():
+        if key not in data:
+            continue
+        where = _where(key_prefix, key)
+        if unit == "%/K":
+            values[key] = parse_per_kelvin(data[key], key=where, file=file)
+            continue
+        value = parse_quantity(data[key], unit, key=where, file=file)
+        if key in _MAGNITUDE_KEYS and value < 0:
+            raise StageError(f"is negative ({format_quantity(value, unit)}): give the magnitude, "
+                             "as datasheets do for either polarity", file=file, key=where,
+                             accepted=f"a positive value such as {format_quantity(-value, unit)}")
+        values[key] = _bound(value, rule, file, where, unit, accepted_for(unit))
+
+    if base is None:
+        for key in REQUIRED_DEVICE_KEYS:
+            if key not in data:
+                raise StageError(
+                    "is missing (required unless a preset or device file gives it)", file=file,
+                    key=_where(key_prefix, key),
+                    accepted=f"the key, or preset = one of {presets}, or file = \"...toml\"")
+        device = Device(**values)
+    else:
+        overrides = {k: v for k, v in values.items() if k != "name"}
+        device = base.with_overrides(**overrides)
+        if "name" in values:
+            device = device.with_overrides(name=values["name"])
+        elif device != base and base.name:
+            device = device.with_overrides(name=f"{base.name} (modified)")
+    if device.hfe_typ is not None and not device.hfe_min <= device.hfe_typ <= device.hfe_max:
+        raise StageError(
+            f"hfe_typ {device.hfe_typ:g} lies outside hfe [{device.hfe_min:g}, "
+            f"{device.hfe_max:g}]", file=file, key=_where(key_prefix, "hfe_typ"),
+            accepted="a value between the hfe min and max")
+    return device
+
+
+def load_device_file(path: str | Path, *, _referrer: tuple[str, str] | None = None) -> Device:
+    """Read a user's device TOML: the [transistor] keys, at top level or under [transistor].
+
+    The device is named after the file (its stem) unless it gives `name`.
+    """
+    path = Path(path)
+    data = _read_toml(path, file_key=_referrer)
+    file = str(path)
+    if "transistor" in data:
+        _check_keys(data, ("transistor",), "", file)
+        table, prefix = data["transistor"], "transistor"
+    else:
+        table, prefix = data, ""
+    device = device_from_mapping(table, file, prefix, allow_file=False)
+    if not (isinstance(table, Mapping) and "name" in table):
+        device = device.with_overrides(name=path.stem)
+    return device
+
+
+def spec_from_mapping(data: Mapping[str, Any], file: str = "<spec>", *,
+                      base_dir: str | Path | None = None) -> Spec:
+    """Validate parsed TOML (section 1 of the contract) into a Spec; StageError names the key."""
+    if not isinstance(data, Mapping):
+        raise StageError("a spec must be a TOML table of sections", file=file)
+    _check_keys(data, TOP_KEYS, "", file)
+    for section, keys in _SECTION_KEYS.items():
+        if section in data and isinstance(data[section], Mapping):
+            _check_keys(data[section], keys, section, file)
+
+    title = data.get("title", "")
+    if not isinstance(title, str):
+        raise StageError(f"{title!r} is not text", file=file, key="title",
+                         accepted='free text in quotes, e.g. title = "Geophone preamp"')
+
+    s = _table(data, "supply", file, required=True)
+    supply = Supply(
+        voltage=_quantity(s, "voltage", "supply", file, "V", ">0",
+                          required_example='voltage = "12 V"'),
+        tolerance=_tolerance(s, "tolerance", "supply", file, 0.0),
+    )
+
+    src = _table(data, "source", file, required=False)
+    source = Source(resistance=_quantity(src, "resistance", "source", file, "Ω", ">=0", 0.0))
+
+    ld = _table(data, "load", file, required=True)
+    load = Load(
+        resistance=_quantity(ld, "resistance", "load", file, "Ω", ">0",
+                             required_example='resistance = "10 kΩ"'),
+        capacitance=_quantity(ld, "capacitance", "load", file, "F", ">=0", 0.0),
+    )
+
+    require = _requirements(_table(data, "require", file, required=True), file)
+
+    if "transistor" not in data:
+        raise StageError("the section [transistor] is missing", file=file, key="transistor",
+                         accepted=f"[transistor] with preset = one of {', '.join(PRESETS)}, "
+                         "or the keys polarity, hfe, vbe, ft, c_cb")
+    folder = Path(base_dir) if base_dir is not None else Path(file).parent
+    transistor = device_from_mapping(data["transistor"], file, "transistor", base_dir=folder)
+
+    parts = _parts(_table(data, "parts", file, required=False), file)
+    return Spec(supply=supply, load=load, require=require, transistor=transistor,
+                source=source, parts=parts, title=title, path=file)
+
+
+def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
+    p = "require"
+    if "gain" not in r:
+        raise _missing(file, "require.gain", 'gain = "20 dB" or gain = "10 V/V"')
+    gain = parse_gain(r["gain"], key="require.gain", file=file)
+    tol_db = 1.0
+    if "gain_tolerance" in r:
+        tol_db = parse_db(r["gain_tolerance"], key="require.gain_tolerance", file=file)
+        if tol_db <= 0:
+            raise StageError(f"must be greater than 0 dB, got {tol_db:g} dB", file=file,
+                             key="require.gain_tolerance", accepted="e.g. '1 dB' or '0.5 dB'")
+    f_low = _quantity(r, "f_low", p, file, "Hz", ">0", required_example='f_low = "20 Hz"')
+    f_high = _quantity(r, "f_high", p, file, "Hz", ">0", required_example='f_high = "100 kHz"')
+    if not f_low < f_high:
+        raise StageError(
+            f"f_low ({format_quantity(f_low, 'Hz')}) must be below f_high "
+            f"({format_quantity(f_high, 'Hz')})", file=file, key="require.f_low",
+            accepted="f_low < f_high: the band the stage must pass")
+    swing = 0.0
+    if "swing" in r:
+        swing = parse_swing(r["swing"], key="require.swing", file=file)
+    ambient = (25.0, 25.0)
+    if "ambient" in r:
+        ambient = _ambient(r["ambient"], file)
+    inverting = _inverting(r.get("inverting", "any"), file)
+    yield_target = None
+    if "yield" in r:
+        yield_target = parse_fraction(r["yield"], key="require.yield", file=file)
+        if not 0 < yield_target <= 1:
+            raise StageError(f"must lie above 0 and at most 100 %, got "
+                             f"{format_quantity(yield_target, '%')}", file=file,
+                             key="require.yield", accepted="a share such as '99 %'")
+    return Requirements(
+        gain=gain,
+        f_low=f_low,
+        f_high=f_high,
+        gain_tolerance_db=tol_db,
+        z_in=_quantity(r, "z_in", p, file, "Ω", ">=0", 0.0),
+        swing_vpp=swing,
+        supply_current=_quantity(r, "supply_current", p, file, "A", ">0", None),
+        ambient=ambient,
+        inverting=inverting,
+        z_out=_quantity(r, "z_out", p, file, "Ω", ">0", None),
+        yield_target=yield_target,
+    )
+
+
+def _ambient(value: Any, file: str) -> tuple[float, float]:
+    key = "require.ambient"
+    if isinstance(value, list | tuple):
+        if len(value) not in (1, 2):
+            raise StageError(f"{value!r} has {len(value)} entries", file=file, key=key,
+                             accepted='one temperature, or [min, max] such as ["0 °C", "50 °C"]')
+        temps = [parse_temperature(v, key=key, file=file) for v in value]
+        lo, hi = temps[0], temps[-1]
+    else:
+        lo = hi = parse_temperature(value, key=key, file=file)
+    if lo > hi:
+        raise StageError(f"min {lo:g} °C is above max {hi:g} °C", file=file, key=key,
+                         accepted='[min, max] such as ["0 °C", "50 °C"]')
+    return lo, hi
+
+
+def _inverting(value: Any, file: str) -> str:
+    if value is True:
+        return "yes"
+    if value is False:
+        return "no"
+    norm = value.strip().lower() if isinstance(value, str) else None
+    if norm not in ("any", "yes", "no"):
+        raise StageError(f"{value!r} is not a choice", file=file, key="require.inverting",
+                         accepted='"any", "yes" or "no" (or true / false)')
+    return norm
+
+
+def _parts(t: Mapping[str, Any], file: str) -> Parts:
+    default = Parts()
+    values: dict[str, Any] = {}
+    for key in ("resistors", "capacitors"):
+        if key in t:
+            values[key] = eseries.series_name(t[key], key=f"parts.{key}", file=file)
+    for key in ("resistor_tolerance", "capacitor_tolerance"):
+        values[key] = _tolerance(t, key, "parts", file, getattr(default, key))
+    return dataclasses.replace(default, **values)
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Read and validate a stage spec TOML file (errors name the file and key; exit code 2)."""
+    path = Path(path)
+    data = _read_toml(path)
+    return spec_from_mapping(data, str(path), base_dir=path.parent)
+
+
+def spec_template() -> str:
+    """The commented spec template that `stagesynth new` writes (packaged TOML text)."""
+    return resources.files("stagesynth").joinpath("templates", "spec_template.toml").read_text(
+        encoding="utf-8")
+
+
+# ---------------------------------------------------------------------------
+# Writing a Spec back as TOML (every key explicit, values exact on re-reading)
+# ---------------------------------------------------------------------------
+def _toml_str(text: str) -> str:
+    return json.dumps(text, ensure_ascii=False)
+
+
+def _q(value: float, unit: str) -> str:
+    return _toml_str(format_quantity(value, unit, digits=None))
+
+
+def _gain_text(gain: float) -> str:
+    """The gain in dB when a short dB figure reads back to exactly `gain`, else exact V/V."""
+    db = 20.0 * math.log10(gain)
+    for digits in range(1, 16):
+        text = format_quantity(db, "dB", digits)
+        if parse_gain(text) == gain:
+            return _toml_str(text)
+    return _q(gain, "V/V")
+
+
+def spec_to_toml(spec: Spec) -> str:
+    """The spec as TOML text that `load_spec` reads back to an equal Spec (apart from `path`).
+
+    The transistor is written out field by field (no preset), so the file stands alone.
+    """
+    r, d = spec.require, spec.transistor
+    lines = [f"title = {_toml_str(spec.title)}", "", "[supply]",
+             f"voltage = {_q(spec.supply.voltage, 'V')}",
+             f"tolerance = {_q(spec.supply.tolerance, '%')}", "", "[source]",
+             f"resistance = {_q(spec.source.resistance, 'Ω')}", "", "[load]",
+             f"resistance = {_q(spec.load.resistance, 'Ω')}",
+             f"capacitance = {_q(spec.load.capacitance, 'F')}", "", "[require]",
+             f"gain = {_gain_text(r.gain)}",
+             f"gain_tolerance = {_q(r.gain_tolerance_db, 'dB')}",
+             f"f_low = {_q(r.f_low, 'Hz')}",
+             f"f_high = {_q(r.f_high, 'Hz')}",
+             f"z_in = {_q(r.z_in, 'Ω')}",
+             f"swing = {_q(r.swing_vpp, 'Vpp')}",
+             f"ambient = [{_q(r.ambient[0], '°C')}, {_q(r.ambient[1], '°C')}]",
+             f"inverting = {_toml_str(r.inverting)}"]
+    if r.supply_current is not None:
+        lines.append(f"supply_current = {_q(r.supply_current, 'A')}")
+    if r.z_out is not None:
+        lines.append(f"z_out = {_q(r.z_out, 'Ω')}")
+    if r.yield_target is not None:
+        lines.append(f"yield = {_q(r.yield_target, '%')}")
+    lines += ["", "[transistor]"]
+    if d.name:
+        lines.append(f"name = {_toml_str(d.name)}")
+    lines += [f"polarity = {_toml_str(d.polarity)}", f"hfe = [{d.hfe_min!r}, {d.hfe_max!r}]"]
+    if d.hfe_typ is not None:
+        lines.append(f"hfe_typ = {d.hfe_typ!r}")
+    for key, (unit, _rule) in _DEVICE_QUANTITIES.items():
+        value = getattr(d, key)
+        if value is not None:
+            lines.append(f"{key} = {_q(value, unit)}")
+    p = spec.parts
+    lines += ["", "[parts]", f"resistors = {_toml_str(p.resistors)}",
+              f"resistor_tolerance = {_q(p.resistor_tolerance, '%')}",
+              f"capacitors = {_toml_str(p.capacitors)}",
+              f"capacitor_tolerance = {_q(p.capacitor_tolerance, '%')}"]
+    return "\n".join(lines) + "\n"
