@@ -16,6 +16,9 @@ from .circuit import Circuit
 from .device import hfe_at, saturation_current, thermal_voltage
 
 GMIN = 1e-12  # S from every node to ground, so DC-floating nodes stay defined
+VNTOL = 1e-7  # V, absolute node-voltage tolerance of the last Newton step
+RELTOL = 1e-7  # relative node-voltage tolerance of the last Newton step
+ABSTOL = 1e-13  # A, KCL residual floor
 _MAX_EXP_ARG = 80.0  # beyond this the exponential is continued linearly
 
 
@@ -115,16 +118,24 @@ class _Model:
             vce[:, k] = s * (v[:, q.c] - v[:, q.e])
         return vbe, vce
 
-    def evaluate(self, v: np.ndarray, tj: np.ndarray):
-        """KCL residual F (B, n+2), Jacobian J (B, n+2, n+2) and BJT quantities."""
+    def evaluate(self, v: np.ndarray, tj: np.ndarray, pivot: np.ndarray | None = None):
+        """KCL residual F (B, n+2), Jacobian J (B, n+2, n+2) and BJT quantities.
+
+        With `pivot` (B, nQ) the junctions are linearized about VBE = pivot instead
+        of their present voltage: one Newton step then solves the circuit with each
+        transistor as its tangent model at that point (a warm start from cold).
+        """
         F = np.einsum("bij,bj->bi", self.G, v)
         J = self.G.copy()
         is_, vt, hfe = self.device_params(tj)
         vbe, vce = self.junctions(v)
-        ex, dex = _limexp(vbe / vt)
+        at = vbe if pivot is None else pivot
+        ex, dex = _limexp(at / vt)
         early = 1.0 + vce / self.va
-        ic = is_ * ex * early
         gm = is_ * dex / vt * early
+        ic = is_ * ex * early
+        if pivot is not None:
+            ic = ic + gm * (vbe - pivot)
         go = is_ * ex / self.va
         ib = ic / hfe
         for k, q in enumerate(self.bjts):
@@ -158,8 +169,14 @@ def _newton(
     tj: np.ndarray,
     supply_scale: float,
     max_iter: int,
+    pivot: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
-    """Damped Newton with junction limiting and interleaved self-heating update."""
+    """Damped Newton with junction limiting and interleaved self-heating update.
+
+    Converged: the last full step moved no node by more than VNTOL + RELTOL*|v|
+    (Newton's error after that step is far smaller still), KCL holds to ABSTOL
+    plus a relative share of the largest branch current, and Tj has settled.
+    """
     free = model.free
     v = v.copy()
     v[:, model.c.supply] = model.supply * supply_scale
@@ -168,8 +185,8 @@ def _newton(
         v[:, model.c.input] = 0.0
     converged = np.zeros(model.B, dtype=bool)
     it = 0
-    for it in range(1, max_iter + 1):  # noqa: B007 - iteration count is reported
-        F, J, q = model.evaluate(v, tj)
+    for it in range(1, max_iter + 1):
+        F, J, q = model.evaluate(v, tj, pivot if it == 1 else None)
         Ff = F[:, free]
         Jf = J[:, free[:, None], free[None, :]]
         try:
@@ -200,11 +217,16 @@ def _newton(
         tj_new = model.ambient[:, None] + model.theta * p
         dtj = np.abs(tj_new - tj)
         tj = tj_new
-        scale = 1e-12 + 1e-9 * np.max(np.abs(v), axis=1)
-        small_step = np.max(np.abs(alpha[:, None] * step), axis=1) < 1e-9 + scale
+        scale = VNTOL + RELTOL * np.max(np.abs(v), axis=1)
+        small_step = np.max(np.abs(alpha[:, None] * step), axis=1) < scale
         fres = np.max(np.abs(Ff), axis=1) if Ff.size else np.zeros(model.B)
-        converged = small_step & (fres < 1e-10) & (np.max(dtj, axis=1, initial=0.0) < 1e-6) & (
-            alpha >= 1.0
+        i_scale = np.max(np.abs(q["ic"]), axis=1, initial=0.0) + np.max(
+            np.abs(model.supply)) / 1e9
+        converged = (
+            small_step
+            & (fres < ABSTOL + 1e-9 * i_scale)
+            & (np.max(dtj, axis=1, initial=0.0) < 1e-6)
+            & (alpha >= 1.0)
         )
         if np.all(converged) or not np.all(np.isfinite(v)):
             break
@@ -220,42 +242,51 @@ def solve_dc(
     source_resistance: np.ndarray | float,
     load_resistance: np.ndarray | float,
     *,
-    v0: np.ndarray | None = None,
     max_iter: int = 200,
 ) -> DcBatch:
     """Operating points for B conditions at once.
 
     r_values (B, nR) in circuit.resistors order; supply, ambient (B,); hfe25 (B, nQ).
-    A cold start that fails is retried by stepping the supply up from 10 %.
+    Cold start from a tangent-model step at each device's datasheet VBE; members
+    that have not converged after a few dozen iterations continue on their own,
+    and any still failing are retried by stepping the supply up from 10 %.
     """
     supply = np.asarray(supply, dtype=float)
     B = supply.shape[0]
-    src = np.broadcast_to(np.asarray(source_resistance, dtype=float), (B,))
-    load = np.broadcast_to(np.asarray(load_resistance, dtype=float), (B,))
-    model = _Model(
-        circuit,
+    nq = len(circuit.bjts)
+    args = (
         np.asarray(r_values, dtype=float).reshape(B, -1),
         supply,
-        np.asarray(hfe25, dtype=float).reshape(B, -1),
-        np.asarray(ambient, dtype=float),
-        src,
-        load,
+        np.asarray(hfe25, dtype=float).reshape(B, nq),
+        np.asarray(ambient, dtype=float).reshape(B),
+        np.broadcast_to(np.asarray(source_resistance, dtype=float), (B,)),
+        np.broadcast_to(np.asarray(load_resistance, dtype=float), (B,)),
     )
-    n2 = circuit.n + 2
-    v = np.zeros((B, n2)) if v0 is None else np.array(v0, dtype=float)
-    tj = np.repeat(model.ambient[:, None], len(circuit.bjts), axis=1)
-    v, tj, ok, iters = _newton(model, v, tj, 1.0, max_iter)
-    if not np.all(ok):
-        # supply stepping from a cold start for the members that did not converge
-        bad = ~ok
-        vs = np.zeros((B, n2))
-        tjs = np.repeat(model.ambient[:, None], len(circuit.bjts), axis=1)
+
+    def model_for(idx: np.ndarray) -> _Model:
+        return _Model(circuit, *(a[idx] for a in args))
+
+    everyone = np.arange(B)
+    model = model_for(everyone)
+    pivot = np.tile(np.array([q.device.vbe for q in circuit.bjts]), (B, 1))
+    v = np.zeros((B, circuit.n + 2))
+    tj = np.repeat(model.ambient[:, None], nq, axis=1)
+    v, tj, ok, iters = _newton(model, v, tj, 1.0, 40, pivot)
+    if not np.all(ok):  # stragglers continue on their own
+        idx = np.flatnonzero(~ok)
+        sub = model_for(idx)
+        v2, tj2, ok2, k = _newton(sub, v[idx], tj[idx], 1.0, max_iter)
+        v[idx], tj[idx], ok[idx] = v2, tj2, ok2
+        iters += k
+    if not np.all(ok):  # supply stepping from a cold start
+        idx = np.flatnonzero(~ok)
+        sub = model_for(idx)
+        vs = np.zeros((idx.size, circuit.n + 2))
+        tjs = np.repeat(sub.ambient[:, None], nq, axis=1)
         for scale in np.linspace(0.1, 1.0, 10):
-            vs, tjs, ok_s, k = _newton(model, vs, tjs, float(scale), max_iter)
+            vs, tjs, ok_s, k = _newton(sub, vs, tjs, float(scale), max_iter)
             iters += k
-        v[bad] = vs[bad]
-        tj[bad] = tjs[bad]
-        ok = ok | (ok_s & bad)
+        v[idx], tj[idx], ok[idx] = vs, tjs, ok_s
     F, _, q = model.evaluate(v, tj)
     # current out of the supply node into the network = KCL sum at that node
     supply_current = F[:, circuit.supply]

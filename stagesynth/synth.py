@@ -1,0 +1,397 @@
+"""Synthesis: from a spec to a complete stage with standard values, verified exactly.
+
+The search, in order:
+1. physics pre-checks that name an impossible requirement outright;
+2. a first-cut grid over the design variables (bias current, emitter voltage,
+   collector-emitter voltage, divider stiffness), every candidate's DC point
+   solved exactly (batched);
+3. the gain-setting split (RE1 vs RE2, total fixed so the DC point stays) moved
+   by secant steps until the exact midband gain is on target;
+4. every candidate judged at every corner by the exact analysis; the best few
+   refined on a finer grid around them;
+5. standard values: all combinations of the neighbouring IEC 60063 values of
+   every resistor, re-verified exactly; the capacitors sized for the low corner;
+6. the final design analysed once more: its `predicted` figures are the engine's.
+
+Objective: among designs that meet every requirement, the largest smallest
+normalized margin, then the lower supply current (margins within TIE of the
+best count as equal); `prefer="current"` reverses the two.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .analysis import Analysis, Environment, analyze, condition_arrays, corner_conditions
+from .capsizing import size_capacitors
+from .circuit import compile_design
+from .dc import solve_dc
+from .eseries import nearest, neighbours
+from .evaluate import Conditions, Figures, evaluate
+from .netlist import Design
+from .spec import Spec
+from .topologies import common_emitter as ce
+from .verdict import Row, Verdict, assess, judge, meets, smallest_margin
+
+TIE = 0.03  # normalized margins this close to the best count as equal
+_RE1_FLOOR = 1e-3  # ohm: stands for "no unbypassed resistor" inside the batch
+_LF_SKIP = ("f_low",)  # capacitors are sized after the resistors
+
+
+@dataclass(frozen=True)
+class Conflict:
+    """A requirement no candidate met, with the best value reached and what to relax."""
+
+    name: str
+    limit: str
+    best: str
+    advice: str
+
+
+@dataclass(frozen=True)
+class SynthesisResult:
+    spec: Spec
+    design: Design
+    analysis: Analysis
+    verdict: Verdict
+    conflicts: tuple[Conflict, ...]
+    notes: tuple[str, ...]
+    stats: dict = field(default_factory=dict)
+
+    @property
+    def meets_spec(self) -> bool:
+        return self.verdict.meets_spec
+
+
+class _Search:
+    """Holds the compiled circuit and conditions shared by every candidate batch."""
+
+    def __init__(self, spec: Spec) -> None:
+        self.spec = spec
+        placeholder = {ref: 1e3 for ref in ce.RESISTOR_ROLES}
+        placeholder.update({ref: 1e-6 for ref in ce.CAPACITOR_ROLES})
+        self.template = ce.build(spec, placeholder)
+        self.circuit = compile_design(self.template)
+        self.env = Environment.for_design(self.template, spec)
+        self.conditions = condition_arrays(
+            self.circuit, corner_conditions(self.template, self.env)
+        )
+        self.r_refs = [ref for ref, _, _ in self.circuit.resistors]
+        self.c_refs = [ref for ref, _, _ in self.circuit.capacitors]
+        # capacitors large enough to keep the low corner far below midband while
+        # the resistors are searched; they are sized properly afterwards
+        big = 50.0 / (2 * math.pi * spec.require.f_low * 10.0)
+        self.c_big = np.full(len(self.c_refs), big)
+        self.midband = spec.require.midband
+        self.evaluated = 0
+
+    def r_matrix(self, values: dict[str, np.ndarray]) -> np.ndarray:
+        return np.stack([np.asarray(values[ref], dtype=float) for ref in self.r_refs], axis=1)
+
+    def evaluate(self, r: np.ndarray, c: np.ndarray | None = None) -> Figures:
+        k = r.shape[0]
+        self.evaluated += k
+        caps = np.tile(self.c_big, (k, 1)) if c is None else c
+        d = self.template
+        return evaluate(self.circuit, r, caps, self.conditions,
+                        source_resistance=d.source_resistance,
+                        load_resistance=d.load_resistance,
+                        load_capacitance=d.load_capacitance,
+                        band=(self.spec.require.f_low, self.spec.require.f_high))
+
+    def tune_gain(self, r: np.ndarray, re1: np.ndarray) -> np.ndarray:
+        """Move resistance between RE1 and RE2 (sum fixed, DC point unchanged) so the
+        exact midband gain is on target: secant steps on 1/|A|, nearly linear in RE1."""
+        from .ac import linearize
+
+        i4, i5 = self.r_refs.index("R4"), self.r_refs.index("R5")
+        total = r[:, i4] + r[:, i5]
+        k = r.shape[0]
+        nominal = Conditions(self.conditions.hfe25[:1], self.conditions.ambient[:1],
+                             self.conditions.supply[:1])
+        d = self.template
+        r0 = r.copy()
+        r0[:, i4] = _RE1_FLOOR
+        r0[:, i5] = total - _RE1_FLOOR
+        dc = solve_dc(self.circuit, r0, np.repeat(nominal.supply, k),
+                      np.repeat(nominal.hfe25, k, axis=0), np.repeat(nominal.ambient, k),
+                      d.source_resistance, d.load_resistance)
+        caps = np.tile(self.c_big, (k, 1))
+        fm = np.full((k, 1), self.midband)
+
+        def inv_gain(x: np.ndarray) -> np.ndarray:
+            rr = r0.copy()
+            rr[:, i4] = x
+            rr[:, i5] = total - x
+            sys = linearize(self.circuit, dc, rr, caps, d.source_resistance,
+                            d.load_resistance, d.load_capacitance)
+            return 1.0 / np.maximum(np.abs(sys.gain(fm)[:, 0]), 1e-30)
+
+        target = 1.0 / self.spec.require.gain
+        lo, hi = _RE1_FLOOR, total - _RE1_FLOOR
+        x0 = np.clip(re1, lo, hi)
+        x1 = np.clip(x0 * 1.2 + 1.0, lo, hi)
+        y0, y1 = inv_gain(x0), inv_gain(x1)
+        for _ in range(4):
+            slope = (y1 - y0) / np.where(np.abs(x1 - x0) > 1e-12, x1 - x0, 1e-12)
+            slope = np.where(slope > 0, slope, np.abs(slope) + 1e-12)
+            x2 = np.clip(x1 + (target - y1) / slope, lo, hi)
+            x0, y0 = x1, y1
+            x1, y1 = x2, inv_gain(x2)
+        return x1
+
+
+def _rank(rows: list[Row], current: np.ndarray, prefer: str, skip=_LF_SKIP) -> np.ndarray:
+    """Candidate order, best first, per the objective of the module docstring."""
+    ok = np.ones_like(current, dtype=bool)
+    for row in rows:
+        if row.name not in skip:
+            ok &= row.ok
+    score = smallest_margin(rows, skip)
+    score = np.where(np.isfinite(score), score, -1e9)
+    if prefer == "current":
+        primary = np.where(ok, -current / np.max(current), -1e9 + score)
+        secondary = score
+    else:
+        best = np.max(np.where(ok, score, -np.inf)) if np.any(ok) else np.max(score)
+        tied = ok & (score >= best - TIE)
+        primary = np.where(tied, best, score)
+        secondary = -current
+    return np.lexsort((secondary, primary))[::-1]
+
+
+def _physics_conflicts(spec: Spec) -> list[Conflict]:
+    """Requirements that no single stage on this supply and transistor can meet."""
+    out = []
+    r = spec.require
+    dev = spec.transistor
+    vmin = spec.supply.voltage * (1 - spec.supply.tolerance)
+    most = vmin - dev.vce_sat
+    if r.swing_vpp >= most:
+        out.append(Conflict(
+            "swing", f"{r.swing_vpp:.3g} Vpp",
+            f"below {most:.3g} Vpp: the collector can move at most between the supply "
+            f"({vmin:.3g} V at its low tolerance) and VCE(sat) = {dev.vce_sat:.3g} V",
+            "ask for less swing, or raise the supply voltage",
+        ))
+    gbw = r.gain * r.f_high
+    if gbw > dev.ft:
+        out.append(Conflict(
+            "f_high", f"{r.f_high:.4g} Hz at {r.gain:.3g} V/V",
+            f"gain × bandwidth ≤ fT = {dev.ft:.4g} Hz for one transistor; asked "
+            f"{gbw:.4g} Hz",
+            "lower the gain or f_high, or choose a transistor with a higher fT",
+        ))
+    if r.inverting == "no":
+        out.append(Conflict(
+            "inverting", "no", "a common-emitter stage always inverts",
+            'set inverting = "any" or "yes" (non-inverting circuits come with the '
+            "follower and two-stage families)",
+        ))
+    return out
+
+
+def _conflicts(rows: list[Row], spec: Spec) -> list[Conflict]:
+    """For each failed requirement: the best value among candidates meeting the others."""
+    out = []
+    for row in rows:
+        if row.name == "f_low" or np.any(row.ok & _others_ok(rows, row.name)):
+            continue
+        others = _others_ok(rows, row.name)
+        pool = others if np.any(others) else np.ones_like(row.ok)
+        held = "with the other requirements met" if np.any(others) else (
+            "(no candidate met the others either)")
+        vals = np.asarray(row.value, dtype=float)[pool]
+        if row.relation == ">=":
+            best = float(np.max(vals))
+        elif row.relation == "<=":
+            best = float(np.min(vals))
+        elif row.relation == "within":
+            target = spec.require.gain_db
+            best = float(vals[np.argmin(np.abs(vals - target))])
+        else:
+            continue
+        out.append(Conflict(
+            row.name, _limit_text(row), f"{_fmt(best, row.unit)} {held}",
+            _advice(row.name, best, spec, row.unit),
+        ))
+    return out
+
+
+def _others_ok(rows: list[Row], name: str) -> np.ndarray:
+    ok = np.ones_like(rows[0].ok, dtype=bool)
+    for row in rows:
+        if row.name not in (name, "f_low"):
+            ok &= row.ok
+    return ok
+
+
+def _fmt(value: float, unit: str) -> str:
+    from .textout import fmt
+
+    return fmt(value, unit)
+
+
+def _limit_text(row: Row) -> str:
+    if row.relation == "within":
+        lo, hi = row.limit
+        return f"{lo:.2f} … {hi:.2f} dB"
+    return f"{row.relation} {_fmt(float(row.limit), row.unit)}"
+
+
+def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
+    r = spec.require
+    if name == "gain":
+        return (f"the gain reachable at this swing, supply and bandwidth is about {best:.1f} dB: "
+                "ask for that, or use two stages")
+    if name == "swing":
+        return f"relax swing to {_fmt(0.98 * best, 'Vpp')} or raise the supply"
+    if name == "f_high":
+        return (f"relax f_high to {_fmt(0.98 * best, 'Hz')}, lower the gain, reduce the load "
+                "capacitance or source resistance, or choose a faster transistor")
+    if name == "z_in":
+        return f"relax z_in to {_fmt(0.98 * best, 'Ω')}, or lower the source resistance's role"
+    if name == "z_out":
+        return f"relax z_out to {_fmt(1.02 * best, 'Ω')}, or add a follower stage"
+    if name == "supply_current":
+        return f"allow {_fmt(1.02 * best, 'A')} of supply current"
+    if name == "active":
+        return "widen the supply, narrow the ambient range or the hFE spread"
+    if name.endswith(("ic_max", "vce_max", "p_max")):
+        return "choose a transistor with higher ratings, or a lower supply"
+    return "relax this requirement"
+
+
+def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
+    """Design a common-emitter stage for `spec` (see the module docstring for the search)."""
+    t0 = time.perf_counter()
+    search = _Search(spec)
+    physics = _physics_conflicts(spec)
+
+    # 2-4: first cut, exact gain split, exact judgement at every corner
+    cut = ce.first_cut(spec)
+    values = dict(cut.values)
+    r = search.r_matrix(values)
+    values["R4"] = search.tune_gain(r, ce.first_re1(spec, cut))
+    total = cut.values["R5"]
+    values["R5"] = total - values["R4"]
+    r = search.r_matrix(values)
+    fig = search.evaluate(r)
+    rows = assess(fig, spec, search.circuit)
+    order = _rank(rows, fig.supply_current[:, 0], prefer)
+    t_search = time.perf_counter()
+
+    # 5: standard values for the best few continuous candidates
+    top = order[: min(4, order.size)]
+    series = spec.parts.resistors
+    snapped = []
+    for i in top:
+        options = []
+        for ref in search.r_refs:
+            v = float(r[i, search.r_refs.index(ref)])
+            if ref == "R4" and v < 0.5:
+                options.append([_RE1_FLOOR])  # no unbypassed resistor
+                continue
+            opts = sorted({nearest(v, series), *neighbours(v, series, 1)})
+            opts = [x for x in opts if 0.7 * v <= x <= 1.4 * v] or [nearest(v, series)]
+            if ref == "R4":
+                opts = [_RE1_FLOOR, *opts] if v < 5.0 else opts
+            options.append(opts)
+        snapped.extend(itertools.product(*options))
+    rs = np.array(snapped)
+    fig_s = search.evaluate(rs)
+    rows_s = assess(fig_s, spec, search.circuit)
+    order_s = _rank(rows_s, fig_s.supply_current[:, 0], prefer)
+    best = int(order_s[0])
+    t_snap = time.perf_counter()
+
+    chosen = {ref: float(rs[best, j]) for j, ref in enumerate(search.r_refs)}
+    chosen.update({ref: float(v) for ref, v in zip(search.c_refs, search.c_big, strict=True)})
+    design = _drop_zero_re1(spec, chosen)
+    sizing = size_capacitors(design, spec.require.f_low, env=search.env,
+                             series=spec.parts.capacitors,
+                             tolerance=spec.parts.capacitor_tolerance)
+    design = sizing.design
+    t_caps = time.perf_counter()
+
+    analysis = analyze(design, spec)
+    verdict = judge(analysis, spec)
+    conflicts = list(physics)
+    if not verdict.meets_spec:
+        seen = {c.name for c in conflicts}
+        for c in _conflicts(rows, spec):
+            if c.name not in seen:
+                conflicts.append(c)
+        if not conflicts:  # near misses after snapping: report the snapped figures
+            for c in verdict.failed:
+                conflicts.append(Conflict(c.name, str(c.limit), _fmt_check(c),
+                                          _advice(c.name, float(c.value), spec, c.unit)))
+    ic = analysis.nominal.transistors["Q1"].ic
+    vce = analysis.nominal.transistors["Q1"].vce
+    notes = [
+        f"Circuit: {ce.TITLE} ({'PNP mirror' if spec.transistor.polarity == 'pnp' else 'NPN'}).",
+        *ce.describe(spec, design.values(), ic, vce),
+        *sizing.notes,
+        "Choice among candidates: every design meeting all requirements was ranked by its "
+        "smallest normalized margin (value beyond the limit as a fraction of the limit), "
+        f"then by lower supply current (margins within {TIE:.0%} count as equal)"
+        + ("; --prefer current reversed that order." if prefer == "current" else "."),
+        f"Search: {cut.count} first-cut bias points and {len(snapped)} standard-value "
+        f"combinations ({series} resistors), each judged by the exact analysis at "
+        f"{search.conditions.count} conditions.",
+    ]
+    extra = dict(design.extra)
+    extra["meets_spec"] = verdict.meets_spec
+    extra["synthesis"] = {
+        "objective": "largest smallest-margin, then lower supply current"
+        if prefer != "current" else "lower supply current, then largest smallest-margin",
+        "prefer": prefer,
+        "candidates": int(cut.count),
+        "standard_value_combinations": len(snapped),
+        "resistor_series": series,
+        "capacitor_series": spec.parts.capacitors,
+        "notes": notes,
+    }
+    from .results import predicted_block
+
+    design = Design(**{**design.__dict__, "predicted": predicted_block(analysis),
+                       "extra": extra})
+    analysis = Analysis(**{**analysis.__dict__, "design": design})
+    t_end = time.perf_counter()
+    stats = {
+        "first_cut_s": t_search - t0,
+        "standard_values_s": t_snap - t_search,
+        "capacitors_s": t_caps - t_snap,
+        "verify_s": t_end - t_caps,
+        "candidates": int(cut.count) + len(snapped),
+        "circuit_evaluations": search.evaluated,
+    }
+    return SynthesisResult(spec, design, analysis, verdict, tuple(conflicts), tuple(notes),
+                           stats)
+
+
+def _fmt_check(c) -> str:
+    from .textout import check_value
+
+    return check_value(c)
+
+
+def _drop_zero_re1(spec: Spec, values: dict[str, float]) -> Design:
+    """Build the design; an RE1 at the floor value means no unbypassed resistor at all."""
+    design = ce.build(spec, values)
+    if values["R4"] > _RE1_FLOOR:
+        return design
+    parts = []
+    for p in design.parts:
+        if p.ref == "R4":
+            continue
+        nodes = tuple("e1" if n == "x1" else n for n in p.nodes)
+        parts.append(type(p)(p.ref, p.kind, nodes, p.value, p.device))
+    roles = {k: v for k, v in design.extra["roles"].items() if k != "R4"}
+    return Design(**{**design.__dict__, "parts": tuple(parts),
+                     "extra": {**design.extra, "roles": roles}})
