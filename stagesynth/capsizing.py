@@ -100,7 +100,7 @@ def size_capacitors(
     refs = [ref for ref, _, _ in circuit.capacitors]
     fig = evaluate(circuit, r, c, conds, source_resistance=design.source_resistance,
                    load_resistance=design.load_resistance,
-                   load_capacitance=design.load_capacitance, band=env.band, corners=False)
+                   load_capacitance=design.load_capacitance, band=env.band, corners="none")
     res = shorted_resistances(design, circuit, fig.nominal.G[0])
     share = _shares(res)
     target = f_low * F_LOW_MARGIN
@@ -113,7 +113,8 @@ def size_capacitors(
         f = evaluate(circuit, np.concatenate([rr, rr]), both, conds,
                      source_resistance=design.source_resistance,
                      load_resistance=design.load_resistance,
-                     load_capacitance=design.load_capacitance, band=env.band)
+                     load_capacitance=design.load_capacitance, band=env.band,
+                     corners="low")
         return f.f_low[:k], f.f_low[k:]
 
     # uniform scaling moves every low-frequency time constant together: refine twice

@@ -90,6 +90,155 @@ def analyze(
 
 @app.command()
 @user_errors
+def design(
+    spec_file: Annotated[Path, typer.Argument(metavar="SPEC.toml", help="Requirements file.")],
+    out: Annotated[Path, typer.Option("--out", metavar="DIR", help="Output folder.")] = Path(
+        "stage-out"
+    ),
+    prefer: Annotated[
+        str,
+        typer.Option(
+            "--prefer",
+            help="margin: largest smallest-margin first; current: lowest supply current first.",
+        ),
+    ] = "margin",
+    force: Annotated[
+        bool, typer.Option("--force", help="Replace files in DIR that stagesynth did not write.")
+    ] = False,
+    no_report: Annotated[
+        bool, typer.Option("--no-report", help="Write design.json only, no report files.")
+    ] = False,
+) -> None:
+    """Synthesize a stage that meets SPEC.toml; write design.json and the report to DIR."""
+    from .fileio import OutputDir
+    from .spec import load_spec
+    from .synth import synthesize
+
+    if prefer not in ("margin", "current"):
+        raise StageError(f"--prefer {prefer!r} is not a choice", key="--prefer",
+                         accepted="margin, current")
+    spec = load_spec(spec_file)
+    outdir = OutputDir(out, force=force)
+    names = ["design.json"] + ([] if no_report else _report_names())
+    outdir.check(names)  # refuse before any work is written
+    result = synthesize(spec, prefer=prefer)
+    outdir.write_text("design.json", result.design.to_json())
+    written = [out / "design.json"]
+    if not no_report:
+        written += _write_report(outdir, result.design, result.analysis, result.verdict, spec,
+                                 list(result.notes))
+    from .textout import analysis_table
+
+    typer.echo(analysis_table(result.analysis, result.verdict))
+    typer.echo("")
+    if result.meets_spec:
+        typer.echo(f"wrote {', '.join(str(p) for p in written)}")
+        return
+    typer.echo("No design meets every requirement. Conflicts:", err=True)
+    for c in result.conflicts:
+        typer.echo(f"  {c.name}: asked {c.limit}; best reached {c.best}.\n"
+                   f"    what to relax: {c.advice}", err=True)
+    typer.echo(f"the closest design was written, marked \"meets_spec\": false: "
+               f"{out / 'design.json'}", err=True)
+    raise typer.Exit(1)
+
+
+def _report_names() -> list[str]:
+    try:
+        from .report.bundle import BUNDLE_FILES
+    except ImportError:  # report package not installed in this build
+        return []
+    return list(BUNDLE_FILES)
+
+
+def _write_report(outdir, design, analysis, verdict, spec, notes) -> list[Path]:
+    try:
+        from .report.bundle import write_bundle
+    except ImportError:
+        return []
+    return list(write_bundle(outdir, design, analysis, verdict=verdict, spec=spec, notes=notes))
+
+
+@app.command()
+@user_errors
+def caps(
+    design_file: Annotated[Path, typer.Argument(metavar="DESIGN.json", help="Design file.")],
+    f_low: Annotated[
+        str, typer.Option("--f-low", metavar="F", help='New low corner, e.g. "5 Hz".')
+    ],
+    spec: Annotated[
+        Path | None, typer.Option("--spec", metavar="SPEC.toml", help="Judge against this spec.")
+    ] = None,
+    out: Annotated[
+        Path | None,
+        typer.Option("--out", metavar="FILE", help="Where to write (default: DESIGN.json)."),
+    ] = None,
+    force: Annotated[
+        bool, typer.Option("--force", help="Overwrite a file stagesynth did not write.")
+    ] = False,
+) -> None:
+    """Re-size the coupling and bypass capacitors of a design for a new low corner."""
+    from dataclasses import replace
+
+    from .analysis import Environment
+    from .analysis import analyze as run_analysis
+    from .capsizing import size_capacitors
+    from .fileio import OutputDir
+    from .netlist import load_design
+    from .results import predicted_block
+    from .units import parse_quantity
+
+    target = parse_quantity(f_low, "Hz", key="--f-low")
+    if target <= 0:
+        raise StageError("must be positive", key="--f-low", accepted='e.g. "5 Hz"')
+    d = load_design(design_file)
+    spec_obj = None
+    if spec is not None:
+        from .spec import load_spec
+
+        spec_obj = load_spec(spec)
+    env = Environment.for_design(d, spec_obj)
+    f_high = env.band[1] if env.band else None
+    if f_high is None:
+        f_high = run_analysis(d).f_high
+    if target >= f_high:
+        raise StageError(f"{target:g} Hz is not below the high corner {f_high:g} Hz",
+                         key="--f-low", accepted="a frequency below f_high")
+    env = replace(env, band=(target, f_high))
+    series = spec_obj.parts.capacitors if spec_obj else d.extra.get("synthesis", {}).get(
+        "capacitor_series", "E6")
+    tol = spec_obj.parts.capacitor_tolerance if spec_obj else 0.1
+    before = run_analysis(d, environment=env)
+    sizing = size_capacitors(d, target, env=env, series=series, tolerance=tol)
+    new = replace(sizing.design, band=(target, f_high))
+    after = run_analysis(new, environment=env)
+    new = replace(new, predicted={**dict(d.predicted), **predicted_block(after)})
+    target_path = out or design_file
+    outdir = OutputDir(target_path.parent, force=force)
+    outdir.write_text(target_path.name, new.to_json())
+    from .textout import fmt
+
+    for ref in sizing.share:
+        typer.echo(f"{ref}: {fmt(d.part(ref).value, 'F')} -> {fmt(new.part(ref).value, 'F')}"
+                   f"  (sees {fmt(sizing.shorted_resistance[ref], 'Ω')}, "
+                   f"{100 * sizing.share[ref]:.0f} % of the corner)")
+    typer.echo(f"f_low: {fmt(before.f_low, 'Hz')} -> {fmt(after.f_low, 'Hz')} "
+               f"(worst case with every capacitor {100 * tol:.0f} % low: "
+               f"{fmt(sizing.f_low_worst, 'Hz')}); wrote {target_path}")
+    if spec_obj is not None:
+        from .verdict import judge
+
+        verdict = judge(run_analysis(new, spec_obj), spec_obj)
+        if not verdict.meets_spec:
+            failed = ", ".join(c.name for c in verdict.failed)
+            typer.echo(f"the updated design does not meet {spec}: {failed}", err=True)
+            raise typer.Exit(1)
+    elif after.f_low > target:
+        raise typer.Exit(1)
+
+
+@app.command()
+@user_errors
 def new(
     path: Annotated[Path, typer.Argument(metavar="SPEC.toml", help="Where to write the template.")],
     force: Annotated[bool, typer.Option("--force", help="Overwrite an existing file.")] = False,

@@ -160,7 +160,7 @@ class _Model:
                 J[:, node, q.bi] += d_vbe[t]
                 J[:, node, q.e] -= d_vbe[t] + d_vce[t]
                 J[:, node, q.c] += d_vce[t]
-        return F, J, dict(ic=ic, ib=ib, vbe=vbe, vce=vce, hfe=hfe, vt=vt, is_=is_)
+        return F, J, dict(ic=ic, ib=ib, vbe=vbe, vce=vce, hfe=hfe, vt=vt, is_=is_, gm=gm, go=go)
 
 
 def _newton(
@@ -171,61 +171,105 @@ def _newton(
     max_iter: int,
     pivot: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
-    """Damped Newton with junction limiting and interleaved self-heating update.
+    """Damped Newton on node voltages and junction temperatures together.
+
+    Unknowns: the free node voltages and each transistor's Tj, with the thermal
+    equation Tj = Ta + theta_ja*VCE*IC beside Kirchhoff's current law (dF/dTj by
+    a forward difference, dP/dv analytic), so self-heating converges quadratically.
+    Junction limiting after SPICE's pnjlim scales the whole step.
 
     Converged: the last full step moved no node by more than VNTOL + RELTOL*|v|
     (Newton's error after that step is far smaller still), KCL holds to ABSTOL
     plus a relative share of the largest branch current, and Tj has settled.
     """
     free = model.free
+    nf = free.size
+    nq = len(model.bjts)
+    B = model.B
     v = v.copy()
+    tj = tj.copy()
     v[:, model.c.supply] = model.supply * supply_scale
     v[:, model.c.ground] = 0.0
     if model.input_fixed:
         v[:, model.c.input] = 0.0
-    converged = np.zeros(model.B, dtype=bool)
+    # critical junction voltage above which steps are limited (SPICE's vcrit)
+    is_amb = np.array([[saturation_current(b.device, 25.0) for b in model.bjts]])
+    vt25 = thermal_voltage(25.0)
+    vcrit = vt25 * np.log(vt25 / (np.sqrt(2.0) * is_amb))
+    converged = np.zeros(B, dtype=bool)
     it = 0
+    heats = np.any(model.theta > 0)
     for it in range(1, max_iter + 1):
         F, J, q = model.evaluate(v, tj, pivot if it == 1 else None)
         Ff = F[:, free]
-        Jf = J[:, free[:, None], free[None, :]]
+        A = np.zeros((B, nf + nq, nf + nq))
+        A[:, :nf, :nf] = J[:, free[:, None], free[None, :]]
+        rhs = np.zeros((B, nf + nq))
+        rhs[:, :nf] = Ff
+        ic, vce = q["ic"], q["vce"]
+        hot = (vce > 0) & (ic > 0)
+        p = np.where(hot, vce * ic, 0.0)
+        rhs[:, nf:] = tj - model.ambient[:, None] - model.theta * p
+        A[:, nf:, nf:] = np.eye(nq)
+        if heats:
+            col = {int(node): k for k, node in enumerate(free)}
+            for k, bq in enumerate(model.bjts):
+                if model.theta[k] == 0:
+                    continue
+                dt = 1e-3
+                tj2 = tj.copy()
+                tj2[:, k] += dt
+                F2, _, q2 = model.evaluate(v, tj2, pivot if it == 1 else None)
+                A[:, :nf, nf + k] = (F2[:, free] - Ff) / dt
+                dp_dt = np.where(hot[:, k], vce[:, k] * (q2["ic"][:, k] - ic[:, k]) / dt, 0.0)
+                A[:, nf + k, nf + k] -= model.theta[k] * dp_dt
+                # dP/dv at the terminals (sign s cancels pairwise as in the KCL stamps)
+                gm = q["gm"][:, k]
+                go = q["go"][:, k]
+                s_ = bq.device.sign
+                dp = {
+                    bq.c: s_ * (ic[:, k] + vce[:, k] * go),
+                    bq.bi: s_ * vce[:, k] * gm,
+                    bq.e: -s_ * (ic[:, k] + vce[:, k] * (gm + go)),
+                }
+                for node, val in dp.items():
+                    if node in col:
+                        A[:, nf + k, col[node]] -= model.theta[k] * np.where(hot[:, k], val, 0.0)
         try:
-            dv = -np.linalg.solve(Jf, Ff[..., None])[..., 0]
+            dx = -np.linalg.solve(A, rhs[..., None])[..., 0]
         except np.linalg.LinAlgError:
-            dv = -np.einsum("bij,bj->bi", np.linalg.pinv(Jf), Ff)
-        # junction limiting (after SPICE's pnjlim): a forward-biased junction may
-        # grow by only VT*ln(1 + dV/VT) in one step; the whole step is scaled.
+            dx = -np.einsum("bij,bj->bi", np.linalg.pinv(A), rhs)
         step = np.zeros_like(v)
-        step[:, free] = dv
-        vbe_old = q["vbe"]
+        step[:, free] = dx[:, :nf]
+        dtj = dx[:, nf:]
+        # junction limiting: above vcrit a junction may grow by VT*ln(1 + dV/VT)
         vbe_new, _ = model.junctions(v + step)
-        dvbe = vbe_new - vbe_old
+        dvbe = vbe_new - q["vbe"]
         vt = q["vt"]
         limit = np.where(
-            (vbe_new > 0.3) & (dvbe > 2.0 * vt),
+            (vbe_new > vcrit) & (dvbe > 2.0 * vt),
             vt * np.log1p(np.maximum(dvbe, 0.0) / vt) / np.where(dvbe > 0, dvbe, 1.0),
             1.0,
         )
-        # also keep any node from jumping more than the supply in one step
+        # keep any node from jumping more than the supply, and Tj by 50 K, in one step
         span = np.max(np.abs(step), axis=1) / np.maximum(np.abs(model.supply), 1.0)
+        tspan = np.max(np.abs(dtj), axis=1, initial=0.0) / 50.0
         junction = np.min(limit, axis=1) if limit.size else 1.0
-        alpha = np.minimum(junction, 1.0 / np.maximum(span, 1.0))
+        alpha = np.minimum(junction, 1.0 / np.maximum(np.maximum(span, tspan), 1.0))
         v = v + alpha[:, None] * step
-        # self-heating: Tj follows the new dissipation (fixed point inside Newton)
-        _, vce_now = model.junctions(v)
-        p = np.maximum(vce_now, 0.0) * np.maximum(q["ic"], 0.0)
-        tj_new = model.ambient[:, None] + model.theta * p
-        dtj = np.abs(tj_new - tj)
-        tj = tj_new
+        tj = tj + alpha[:, None] * dtj
         scale = VNTOL + RELTOL * np.max(np.abs(v), axis=1)
         small_step = np.max(np.abs(alpha[:, None] * step), axis=1) < scale
-        fres = np.max(np.abs(Ff), axis=1) if Ff.size else np.zeros(model.B)
-        i_scale = np.max(np.abs(q["ic"]), axis=1, initial=0.0) + np.max(
-            np.abs(model.supply)) / 1e9
+        fres = np.max(np.abs(Ff), axis=1) if Ff.size else np.zeros(B)
+        # rounding sets the floor: compare with the largest current any branch carries
+        i_scale = np.maximum(
+            np.max(np.abs(ic), axis=1, initial=0.0),
+            np.max(np.einsum("bij,bj->bi", np.abs(model.G), np.abs(v)), axis=1),
+        )
         converged = (
             small_step
             & (fres < ABSTOL + 1e-9 * i_scale)
-            & (np.max(dtj, axis=1, initial=0.0) < 1e-6)
+            & (np.max(np.abs(dtj), axis=1, initial=0.0) < 1e-6)
             & (alpha >= 1.0)
         )
         if np.all(converged) or not np.all(np.isfinite(v)):

@@ -76,12 +76,13 @@ def evaluate(
     load_resistance: float,
     load_capacitance: float,
     band: tuple[float, float] | None,
-    corners: bool = True,
+    corners: str = "both",
 ) -> Figures:
     """Figures for K value sets (rows of r_values, c_values) at every condition.
 
     Condition 0 is the nominal one: gain, corners and impedances are taken there.
-    `corners=False` skips the -3 dB search (for callers that only need DC and gain).
+    `corners` = "both", "low", "high" or "none" chooses which -3 dB searches run
+    (the others come back as nan): synthesis and capacitor sizing need only one.
     """
     r_values = np.atleast_2d(np.asarray(r_values, dtype=float))
     c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
@@ -104,8 +105,8 @@ def evaluate(
         midband = np.full(k, math.sqrt(band[0] * band[1]))
     else:
         midband = np.array([_free_midband(_members(nominal, np.array([i]))) for i in range(k)])
-    if corners:
-        _, f_low, f_high = nominal.corners(midband)
+    if corners != "none":
+        _, f_low, f_high = nominal.corners(midband, which=corners)
     else:
         f_low = np.full(k, np.nan)
         f_high = np.full(k, np.nan)

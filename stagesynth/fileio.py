@@ -24,7 +24,10 @@ def write_bytes_atomic(path: Path, data: bytes) -> None:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    mask = os.umask(0)
+    os.umask(mask)
     try:
+        os.chmod(tmp, 0o666 & ~mask)  # mkstemp makes 0600; a report is for sharing
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()

@@ -102,7 +102,8 @@ class _Search:
                         source_resistance=d.source_resistance,
                         load_resistance=d.load_resistance,
                         load_capacitance=d.load_capacitance,
-                        band=(self.spec.require.f_low, self.spec.require.f_high))
+                        band=(self.spec.require.f_low, self.spec.require.f_high),
+                        corners="high")
 
     def tune_gain(self, r: np.ndarray, re1: np.ndarray) -> np.ndarray:
         """Move resistance between RE1 and RE2 (sum fixed, DC point unchanged) so the
