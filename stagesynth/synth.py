@@ -36,7 +36,7 @@ from .evaluate import Conditions, Figures, evaluate
 from .netlist import Design
 from .spec import Spec
 from .topologies import common_emitter as ce
-from .verdict import Row, Verdict, assess, judge, meets, smallest_margin
+from .verdict import Row, Verdict, assess, judge, smallest_margin
 
 TIE = 0.03  # normalized margins this close to the best count as equal
 _RE1_FLOOR = 1e-3  # ohm: stands for "no unbypassed resistor" inside the batch
@@ -176,16 +176,17 @@ def _physics_conflicts(spec: Spec) -> list[Conflict]:
     if r.swing_vpp >= most:
         out.append(Conflict(
             "swing", f"{r.swing_vpp:.3g} Vpp",
-            f"below {most:.3g} Vpp: the collector can move at most between the supply "
-            f"({vmin:.3g} V at its low tolerance) and VCE(sat) = {dev.vce_sat:.3g} V",
+            f"no single stage can exceed about {most:.3g} Vpp here: the collector moves at "
+            f"most between the supply ({vmin:.3g} V at its low tolerance) and "
+            f"VCE(sat) = {dev.vce_sat:.3g} V",
             "ask for less swing, or raise the supply voltage",
         ))
     gbw = r.gain * r.f_high
     if gbw > dev.ft:
         out.append(Conflict(
             "f_high", f"{r.f_high:.4g} Hz at {r.gain:.3g} V/V",
-            f"gain × bandwidth ≤ fT = {dev.ft:.4g} Hz for one transistor; asked "
-            f"{gbw:.4g} Hz",
+            f"one transistor's gain × bandwidth stays below fT = {dev.ft:.4g} Hz; "
+            f"this asks {gbw:.4g} Hz",
             "lower the gain or f_high, or choose a transistor with a higher fT",
         ))
     if r.inverting == "no":
@@ -198,24 +199,34 @@ def _physics_conflicts(spec: Spec) -> list[Conflict]:
 
 
 def _conflicts(rows: list[Row], spec: Spec) -> list[Conflict]:
-    """For each failed requirement: the best value among candidates meeting the others."""
+    """The requirements that stand in the way, with the best value the search reached.
+
+    A requirement is named when no candidate meets it at all, or when every
+    candidate that failed did so only on it (dropping it alone makes the rest
+    feasible); its best value is taken among candidates meeting the others.
+    """
     out = []
     for row in rows:
-        if row.name == "f_low" or np.any(row.ok & _others_ok(rows, row.name)):
+        if row.name == "f_low":
             continue
         others = _others_ok(rows, row.name)
+        never = not np.any(row.ok)
+        alone = np.any(others) and not np.any(row.ok & others)
+        if not (never or alone):
+            continue
         pool = others if np.any(others) else np.ones_like(row.ok)
         held = "with the other requirements met" if np.any(others) else (
-            "(no candidate met the others either)")
+            "(at the best compromise for the others)")
         vals = np.asarray(row.value, dtype=float)[pool]
         if row.relation == ">=":
             best = float(np.max(vals))
         elif row.relation == "<=":
             best = float(np.min(vals))
         elif row.relation == "within":
-            target = spec.require.gain_db
-            best = float(vals[np.argmin(np.abs(vals - target))])
+            best = float(vals[np.argmin(np.abs(vals - spec.require.gain_db))])
         else:
+            out.append(Conflict(row.name, str(row.limit), "never met",
+                                _advice(row.name, 0.0, spec, row.unit)))
             continue
         out.append(Conflict(
             row.name, _limit_text(row), f"{_fmt(best, row.unit)} {held}",
@@ -246,7 +257,6 @@ def _limit_text(row: Row) -> str:
 
 
 def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
-    r = spec.require
     if name == "gain":
         return (f"the gain reachable at this swing, supply and bandwidth is about {best:.1f} dB: "
                 "ask for that, or use two stages")
@@ -322,12 +332,14 @@ def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
 
     analysis = analyze(design, spec)
     verdict = judge(analysis, spec)
-    conflicts = list(physics)
+    conflicts: list[Conflict] = []
     if not verdict.meets_spec:
-        seen = {c.name for c in conflicts}
-        for c in _conflicts(rows, spec):
-            if c.name not in seen:
-                conflicts.append(c)
+        found = {c.name: c for c in _conflicts(rows, spec)}
+        for c in physics:  # the physical reason first, with the best value searched
+            near = found.pop(c.name, None)
+            best = f"{near.best}; {c.best}" if near else c.best
+            conflicts.append(Conflict(c.name, c.limit, best, c.advice))
+        conflicts.extend(found.values())
         if not conflicts:  # near misses after snapping: report the snapped figures
             for c in verdict.failed:
                 conflicts.append(Conflict(c.name, str(c.limit), _fmt_check(c),
