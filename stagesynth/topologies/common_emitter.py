@@ -16,7 +16,6 @@ split RE1/RE2 is then set by the synthesizer so that the exact gain is on target
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
