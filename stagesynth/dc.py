@@ -67,8 +67,10 @@ class _Model:
         ambient: np.ndarray,
         source_resistance: np.ndarray,
         load_resistance: np.ndarray,
+        leakage: np.ndarray | None = None,
     ) -> None:
         self.c = circuit
+        self.leakage = leakage  # (B, nQ) collector-base leakage ICBO, or None
         n = circuit.n
         self.B = supply.shape[0]
         branches = list(circuit.resistors)
@@ -154,6 +156,9 @@ class _Model:
             i_loc = (ic[:, k], ib[:, k], -(ic[:, k] + ib[:, k]))
             d_vbe = (gm[:, k], gm[:, k] / h, -gm[:, k] * (1.0 + 1.0 / h))
             d_vce = (go[:, k], go[:, k] / h, -go[:, k] * (1.0 + 1.0 / h))
+            if self.leakage is not None:  # ICBO: into the collector, out of the base
+                F[:, q.c] += s * self.leakage[:, k]
+                F[:, q.bi] -= s * self.leakage[:, k]
             for t, node in enumerate(terms):
                 F[:, node] += s * i_loc[t]
                 # d(vbe)/dv = s*(0, 1, -1), d(vce)/dv = s*(1, 0, -1); s*s = 1
@@ -286,11 +291,13 @@ def solve_dc(
     source_resistance: np.ndarray | float,
     load_resistance: np.ndarray | float,
     *,
+    leakage: np.ndarray | None = None,
     max_iter: int = 200,
 ) -> DcBatch:
     """Operating points for B conditions at once.
 
-    r_values (B, nR) in circuit.resistors order; supply, ambient (B,); hfe25 (B, nQ).
+    r_values (B, nR) in circuit.resistors order; supply, ambient (B,); hfe25 (B, nQ);
+    leakage (B, nQ), optional: a collector-base leakage current ICBO per transistor.
     Cold start from a tangent-model step at each device's datasheet VBE; members
     that have not converged after a few dozen iterations continue on their own,
     and any still failing are retried by stepping the supply up from 10 %.
@@ -305,10 +312,11 @@ def solve_dc(
         np.asarray(ambient, dtype=float).reshape(B),
         np.broadcast_to(np.asarray(source_resistance, dtype=float), (B,)),
         np.broadcast_to(np.asarray(load_resistance, dtype=float), (B,)),
+        None if leakage is None else np.asarray(leakage, dtype=float).reshape(B, nq),
     )
 
     def model_for(idx: np.ndarray) -> _Model:
-        return _Model(circuit, *(a[idx] for a in args))
+        return _Model(circuit, *(None if a is None else a[idx] for a in args))
 
     everyone = np.arange(B)
     model = model_for(everyone)

@@ -20,15 +20,33 @@ from .dc import DcBatch, solve_dc
 
 @dataclass(frozen=True)
 class Conditions:
-    """M operating conditions as arrays: hFE at 25 degC per transistor, ambient, supply."""
+    """M operating conditions as arrays: hFE at 25 degC per transistor, ambient, supply.
 
-    hfe25: np.ndarray  # (M, nQ)
-    ambient: np.ndarray  # (M,)
-    supply: np.ndarray  # (M,)
+    Shared by every value set: hfe25 (M, nQ), ambient and supply (M,). Or, for a
+    Monte Carlo where each unit has its own transistor and supply, one set per
+    value set: hfe25 (K, M, nQ), ambient and supply (K, M) (`per_set` is then True).
+    """
+
+    hfe25: np.ndarray
+    ambient: np.ndarray
+    supply: np.ndarray
+
+    @property
+    def per_set(self) -> bool:
+        return self.supply.ndim == 2
 
     @property
     def count(self) -> int:
-        return self.supply.shape[0]
+        return self.supply.shape[-1]
+
+    def expand(self, k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(supply, ambient, hfe25) for the K*M members, ordered k*M + m."""
+        nq = self.hfe25.shape[-1]
+        if self.per_set:
+            return (self.supply.reshape(-1), self.ambient.reshape(-1),
+                    self.hfe25.reshape(-1, nq))
+        return (np.tile(self.supply, k), np.tile(self.ambient, k),
+                np.tile(self.hfe25, (k, 1)))
 
 
 @dataclass(frozen=True)
@@ -92,9 +110,7 @@ def evaluate(
     # member index = k*M + m
     r_rep = np.repeat(r_values, m, axis=0)
     c_rep = np.repeat(c_values, m, axis=0)
-    supply = np.tile(conditions.supply, k)
-    ambient = np.tile(conditions.ambient, k)
-    hfe25 = np.tile(conditions.hfe25, (k, 1))
+    supply, ambient, hfe25 = conditions.expand(k)
     dc = solve_dc(circuit, r_rep, supply, hfe25, ambient, source_resistance, load_resistance)
     system = linearize(
         circuit, dc, r_rep, c_rep, source_resistance, load_resistance, load_capacitance

@@ -48,8 +48,20 @@ def _at_most(name, value, limit, unit, where, cond=None) -> Row:
     return Row(name, value, limit, value <= limit, margin, "<=", unit, where, cond)
 
 
-def assess(fig: Figures, spec: Spec, circuit: Circuit) -> list[Row]:
-    """Every requirement of `spec` for the K value sets in `fig` (condition 0 = nominal)."""
+def assess(
+    fig: Figures,
+    spec: Spec,
+    circuit: Circuit,
+    *,
+    first_corner: int = 1,
+    ratings: bool = True,
+) -> list[Row]:
+    """Every requirement of `spec` for the K value sets in `fig`.
+
+    Condition 0 judges the nominal figures; conditions from `first_corner` on are
+    the corners (a Monte Carlo unit judged at one ambient passes 0: its own
+    condition is both). `ratings=False` leaves out the absolute ratings.
+    """
     r = spec.require
     rows: list[Row] = []
     tol = r.gain_tolerance_db
@@ -70,22 +82,23 @@ def assess(fig: Figures, spec: Spec, circuit: Circuit) -> list[Row]:
         ok = fig.inverting == want
         rows.append(Row("inverting", fig.inverting, r.inverting, ok,
                         np.where(ok, 1.0, -1.0), "is", "", "nominal"))
-    corners = slice(1, None)  # condition 0 is the nominal point
+    corners = slice(first_corner, None)
     active = np.all(fig.active[:, corners], axis=1)
-    first_bad = np.argmin(fig.active[:, corners], axis=1) + 1
+    first_bad = np.argmin(fig.active[:, corners], axis=1) + first_corner
     rows.append(Row("active", active, True, active, np.where(active, 1.0, -1.0), "is", "",
                     "every corner", first_bad))
     if r.swing_vpp > 0:
         sw = fig.swing_vpp[:, corners]
         j = np.argmin(sw, axis=1)
         rows.append(_at_least("swing", sw[np.arange(sw.shape[0]), j], r.swing_vpp, "Vpp",
-                              "every corner", j + 1))
+                              "every corner", j + first_corner))
     if r.supply_current is not None:
         cur = fig.supply_current[:, corners]
         j = np.argmax(cur, axis=1)
         rows.append(_at_most("supply_current", cur[np.arange(cur.shape[0]), j],
-                             r.supply_current, "A", "every corner", j + 1))
-    rows.extend(_rating_rows(fig, circuit))
+                             r.supply_current, "A", "every corner", j + first_corner))
+    if ratings:
+        rows.extend(_rating_rows(fig, circuit))
     return rows
 
 
