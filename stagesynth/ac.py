@@ -19,6 +19,7 @@ from .device import hybrid_pi
 
 _GRID_PER_DECADE = 8  # bracketing grid; the bisection then gives full precision
 _BISECT_STEPS = 44
+_ILLINOIS_STEPS = 14
 DB3 = 10.0 ** (-3.0 / 20.0)  # the contract's "falls 3 dB": literally 3 dB
 
 
@@ -139,6 +140,77 @@ class AcSystem:
             highs = self._crossing(fm, steps, target)
             highs = np.where(np.isnan(highs), np.inf, highs)
         return h_mid, lows, highs
+
+    def corners_near(
+        self, midband: np.ndarray, guess_low: float, guess_high: float
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """(f_low, f_high) for members expected near known corners (a Monte Carlo).
+
+        Brackets a factor of two either side of the guess and refines by the Illinois
+        variant of false position in log f; members whose bracket does not hold fall
+        back to the full outward search, so the result is the same corner either way.
+        """
+        fm = np.asarray(midband, dtype=float).reshape(self.batch)
+        target = np.abs(self.gain(fm[:, None]))[:, 0] * DB3
+        out = []
+        for guess, side in ((guess_low, -1.0), (guess_high, 1.0)):
+            if not (np.isfinite(guess) and guess > 0):
+                out.append(self.corners(fm, which="low" if side < 0 else "high")[1 + (side > 0)])
+                continue
+            lf = np.log10(fm)
+            lg_in = np.full(self.batch, np.log10(guess) - side * 0.3)
+            lg_in = np.minimum(lg_in, lf) if side < 0 else np.maximum(lg_in, lf)
+            lg_out = np.full(self.batch, np.log10(guess) + side * 0.3)
+            found = self._illinois(lg_in, lg_out, target)
+            bad = np.isnan(found)
+            if np.any(bad):
+                idx = np.flatnonzero(bad)
+                sub = self.subset(idx)
+                steps = side * np.arange(1, 9 * _GRID_PER_DECADE + 1) / _GRID_PER_DECADE
+                found[idx] = sub._crossing(fm[idx], steps, target[idx])
+            empty = 0.0 if side < 0 else np.inf
+            out.append(np.where(np.isnan(found), empty, found))
+        return out[0], out[1]
+
+    def _illinois(self, lg_in: np.ndarray, lg_out: np.ndarray, target: np.ndarray) -> np.ndarray:
+        """Root of log|H| = log(target) between lg_in (above) and lg_out (below); nan if
+        the bracket does not hold."""
+        def g(lg: np.ndarray) -> np.ndarray:
+            return np.log(np.abs(self.gain(10.0 ** lg[:, None]))[:, 0]) - np.log(target)
+
+        g_in, g_out = g(lg_in), g(lg_out)
+        valid = (g_in >= 0) & (g_out < 0)
+        side = np.zeros(self.batch)
+        x = lg_in.copy()
+        for _ in range(_ILLINOIS_STEPS):
+            denom = np.where(g_in - g_out != 0, g_in - g_out, 1.0)
+            x = lg_out - g_out * (lg_in - lg_out) / denom
+            x = np.where(valid, x, lg_in)
+            gx = g(x)
+            upper = gx >= 0
+            g_out = np.where(upper & (side > 0), g_out / 2, g_out)
+            g_in = np.where(~upper & (side < 0), g_in / 2, g_in)
+            lg_in = np.where(upper, x, lg_in)
+            g_in = np.where(upper, gx, g_in)
+            lg_out = np.where(upper, lg_out, x)
+            g_out = np.where(upper, g_out, gx)
+            side = np.where(upper, 1.0, -1.0)
+            if np.all(np.abs(gx)[valid] < 1e-10):  # |H| within 1e-10 (relative) of target
+                break
+        return np.where(valid, 10.0 ** x, np.nan)
+
+    def subset(self, idx: np.ndarray) -> AcSystem:
+        """Members `idx` of this batch, as a smaller batch."""
+        return AcSystem(
+            circuit=self.circuit,
+            G=self.G[idx],
+            C=self.C[idx],
+            gm=self.gm[idx],
+            r_o=self.r_o[idx],
+            source_resistance=self.source_resistance[idx],
+            load_resistance=self.load_resistance[idx],
+            load_capacitance=self.load_capacitance[idx],
+        )
 
     def _crossing(self, fm: np.ndarray, log_steps: np.ndarray, target: np.ndarray) -> np.ndarray:
         grid = fm[:, None] * 10.0 ** log_steps[None, :]

@@ -95,12 +95,14 @@ def evaluate(
     load_capacitance: float,
     band: tuple[float, float] | None,
     corners: str = "both",
+    corner_guess: tuple[float, float] | None = None,
 ) -> Figures:
     """Figures for K value sets (rows of r_values, c_values) at every condition.
 
     Condition 0 is the nominal one: gain, corners and impedances are taken there.
     `corners` = "both", "low", "high" or "none" chooses which -3 dB searches run
     (the others come back as nan): synthesis and capacitor sizing need only one.
+    `corner_guess` = (f_low, f_high) of a nearby design speeds the search (Monte Carlo).
     """
     r_values = np.atleast_2d(np.asarray(r_values, dtype=float))
     c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
@@ -121,7 +123,9 @@ def evaluate(
         midband = np.full(k, math.sqrt(band[0] * band[1]))
     else:
         midband = np.array([_free_midband(_members(nominal, np.array([i]))) for i in range(k)])
-    if corners != "none":
+    if corner_guess is not None and corners == "both":
+        f_low, f_high = nominal.corners_near(midband, *corner_guess)
+    elif corners != "none":
         _, f_low, f_high = nominal.corners(midband, which=corners)
     else:
         f_low = np.full(k, np.nan)
@@ -165,16 +169,7 @@ def evaluate(
 
 def _members(system: AcSystem, idx: np.ndarray) -> AcSystem:
     """The batch members `idx` of a linearized system, as a smaller batch."""
-    return AcSystem(
-        circuit=system.circuit,
-        G=system.G[idx],
-        C=system.C[idx],
-        gm=system.gm[idx],
-        r_o=system.r_o[idx],
-        source_resistance=system.source_resistance[idx],
-        load_resistance=system.load_resistance[idx],
-        load_capacitance=system.load_capacitance[idx],
-    )
+    return system.subset(idx)
 
 
 def member(system: AcSystem, i: int) -> AcSystem:
