@@ -56,8 +56,17 @@ def analyze(
     as_json: Annotated[
         bool, typer.Option("--json", help="Print one JSON object on stdout.")
     ] = False,
+    units: Annotated[
+        int | None,
+        typer.Option("--yield", metavar="N", help="Monte Carlo over N built units (needs --spec)."),
+    ] = None,
+    seed: Annotated[int, typer.Option("--seed", help="Monte Carlo seed.")] = 20261201,
 ) -> None:
-    """Analyse a design: gain, corners, impedances, swing at every corner, verdict."""
+    """Analyse a design: gain, corners, impedances, swing at every corner, verdict.
+
+    With --spec, every requirement is judged; a spec that asks for a yield gets a
+    Monte Carlo of 10,000 units unless --yield N says otherwise.
+    """
     from .analysis import analyze as run_analysis
     from .netlist import load_design
     from .results import analysis_to_dict
@@ -71,16 +80,44 @@ def analyze(
         spec_obj = load_spec(spec)
     analysis = run_analysis(design, spec_obj)
     verdict = None
+    extra: dict = {}
+    if units is not None and spec_obj is None:
+        raise StageError("the Monte Carlo needs the part tolerances of a spec", key="--yield",
+                         accepted="--spec SPEC.toml together with --yield N")
+    if units is not None and units < 1:
+        raise StageError(f"{units} is not a number of units", key="--yield",
+                         accepted="a positive whole number, e.g. 10000")
     if spec_obj is not None:
-        from .verdict import judge
+        from .verdict import judge, with_checks, yield_check
 
         verdict = judge(analysis, spec_obj)
+        if units is None and spec_obj.require.yield_target is not None:
+            units = 10_000
+        if units is not None:
+            est, recs = _run_monte_carlo(design, spec_obj, units, seed, quiet=as_json)
+            extra["yield"] = est.to_dict()
+            extra["tolerance_advice"] = recs
+            if spec_obj.require.yield_target is not None:
+                verdict = with_checks(
+                    verdict, yield_check(est.estimate, est.interval,
+                                         spec_obj.require.yield_target))
     if as_json:
         from .netlist import _clean_floats
 
-        typer.echo(json.dumps(_clean_floats(analysis_to_dict(analysis, verdict)), indent=2))
+        out = analysis_to_dict(analysis, verdict)
+        out.update(extra)
+        typer.echo(json.dumps(_clean_floats(out), indent=2))
     else:
         typer.echo(analysis_table(analysis, verdict))
+        if "yield" in extra:
+            y = extra["yield"]
+            lo, hi = y["interval_95"]
+            typer.echo(f"\nyield: {100 * y['estimate']:.2f} % of {y['units']} units "
+                       f"(95 % interval {100 * lo:.2f} … {100 * hi:.2f} %, seed {y['seed']})")
+            for name, count in sorted(y["failures"].items(), key=lambda kv: -kv[1]):
+                typer.echo(f"  {count} units fail {name}")
+            for line in extra["tolerance_advice"]:
+                typer.echo(f"  tighter tolerance: {line}")
     if not analysis.converged:
         typer.echo("stagesynth: the DC operating point did not converge at some corner", err=True)
         raise typer.Exit(1)
@@ -235,6 +272,20 @@ def caps(
             raise typer.Exit(1)
     elif after.f_low > target:
         raise typer.Exit(1)
+
+
+def _run_monte_carlo(design, spec, units: int, seed: int, *, quiet: bool):
+    """Monte Carlo with a progress bar on stderr for long runs; advice from sensitivities."""
+    from .montecarlo import monte_carlo
+    from .sensitivity import recommendations, spreads
+
+    if units >= 5000 and not quiet:
+        with typer.progressbar(length=units, label="Monte Carlo", file=sys.stderr) as bar:
+            est = monte_carlo(design, spec, units, seed=seed, progress=bar.update)
+    else:
+        est = monte_carlo(design, spec, units, seed=seed)
+    recs = recommendations(spreads(design, spec), spec, tuple(est.failures))
+    return est, recs
 
 
 @app.command()

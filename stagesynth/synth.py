@@ -36,9 +36,20 @@ from .evaluate import Conditions, Figures, evaluate
 from .netlist import Design
 from .spec import Spec
 from .topologies import common_emitter as ce
-from .verdict import Row, Verdict, assess, judge, smallest_margin
+from .verdict import (
+    Row,
+    Verdict,
+    assess,
+    judge,
+    smallest_margin,
+    with_checks,
+    yield_check,
+)
 
 TIE = 0.03  # normalized margins this close to the best count as equal
+YIELD_CANDIDATES = 6  # standard-value candidates judged by Monte Carlo when a yield is asked
+YIELD_SCREEN_UNITS = 1500  # units per candidate while choosing (common random numbers)
+YIELD_FINAL_UNITS = 10_000  # units for the figure written to the design file
 _RE1_FLOOR = 1e-3  # ohm: stands for "no unbypassed resistor" inside the batch
 _LF_SKIP = ("f_low",)  # capacitors are sized after the resistors
 
@@ -321,17 +332,30 @@ def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
     best = int(order_s[0])
     t_snap = time.perf_counter()
 
-    chosen = {ref: float(rs[best, j]) for j, ref in enumerate(search.r_refs)}
-    chosen.update({ref: float(v) for ref, v in zip(search.c_refs, search.c_big, strict=True)})
-    design = _drop_zero_re1(spec, chosen)
-    sizing = size_capacitors(design, spec.require.f_low, env=search.env,
-                             series=spec.parts.capacitors,
-                             tolerance=spec.parts.capacitor_tolerance)
-    design = sizing.design
+    def finish(i: int) -> tuple[Design, object]:
+        chosen = {ref: float(rs[i, j]) for j, ref in enumerate(search.r_refs)}
+        chosen.update({ref: float(v) for ref, v in zip(search.c_refs, search.c_big,
+                                                         strict=True)})
+        sized = size_capacitors(_drop_zero_re1(spec, chosen), spec.require.f_low,
+                                env=search.env, series=spec.parts.capacitors,
+                                tolerance=spec.parts.capacitor_tolerance)
+        return sized.design, sized
+
+    design, sizing = finish(best)
     t_caps = time.perf_counter()
+    yield_notes: list[str] = []
+    estimate = None
+    if spec.require.yield_target is not None:
+        passing = [int(i) for i in order_s if _ok_without_f_low(rows_s, int(i))]
+        design, estimate, yield_notes, sizing = _centre_for_yield(
+            spec, passing[:YIELD_CANDIDATES] or [best], finish, (design, sizing))
+    t_yield = time.perf_counter()
 
     analysis = analyze(design, spec)
     verdict = judge(analysis, spec)
+    if estimate is not None:
+        verdict = with_checks(verdict, yield_check(estimate.estimate, estimate.interval,
+                                                   spec.require.yield_target))
     conflicts: list[Conflict] = []
     if not verdict.meets_spec:
         found = {c.name: c for c in _conflicts(rows, spec)}
@@ -350,6 +374,7 @@ def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
         f"Circuit: {ce.TITLE} ({'PNP mirror' if spec.transistor.polarity == 'pnp' else 'NPN'}).",
         *ce.describe(spec, design.values(), ic, vce),
         *sizing.notes,
+        *yield_notes,
         "Choice among candidates: every design meeting all requirements was ranked by its "
         "smallest normalized margin (value beyond the limit as a fraction of the limit), "
         f"then by lower supply current (margins within {TIE:.0%} count as equal)"
@@ -372,20 +397,64 @@ def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
     }
     from .results import predicted_block
 
-    design = Design(**{**design.__dict__, "predicted": predicted_block(analysis),
-                       "extra": extra})
+    predicted = predicted_block(analysis)
+    if estimate is not None:
+        predicted["yield"] = estimate.estimate
+        predicted["yield_interval_95"] = list(estimate.interval)
+        extra["yield"] = estimate.to_dict()
+    design = Design(**{**design.__dict__, "predicted": predicted, "extra": extra})
     analysis = Analysis(**{**analysis.__dict__, "design": design})
     t_end = time.perf_counter()
     stats = {
         "first_cut_s": t_search - t0,
         "standard_values_s": t_snap - t_search,
         "capacitors_s": t_caps - t_snap,
-        "verify_s": t_end - t_caps,
+        "yield_s": t_yield - t_caps,
+        "verify_s": t_end - t_yield,
         "candidates": int(cut.count) + len(snapped),
         "circuit_evaluations": search.evaluated,
     }
     return SynthesisResult(spec, design, analysis, verdict, tuple(conflicts), tuple(notes),
                            stats)
+
+
+def _ok_without_f_low(rows: list[Row], i: int) -> bool:
+    return all(bool(row.ok[i]) for row in rows if row.name not in _LF_SKIP)
+
+
+def _centre_for_yield(spec: Spec, candidates: list[int], finish, first):
+    """Among the best standard-value candidates, keep the one whose Monte Carlo yield has
+    the highest lower confidence bound (margin for the estimate's own uncertainty)."""
+    from .montecarlo import monte_carlo
+    from .sensitivity import recommendations, spreads
+
+    target = spec.require.yield_target
+    best = None
+    for rank, i in enumerate(candidates):
+        design, sizing = first if rank == 0 else finish(i)
+        est = monte_carlo(design, spec, YIELD_SCREEN_UNITS)  # same seed: common numbers
+        key = (est.interval[0], -rank)
+        if best is None or key > best[0]:
+            best = (key, design, sizing)
+        if est.interval[0] >= target and rank == 0:
+            break  # the margin-best design already clears the target with confidence
+    _, design, sizing = best
+    est = monte_carlo(design, spec, YIELD_FINAL_UNITS)
+    lo, hi = est.interval
+    notes = [
+        f"Yield: {100 * est.estimate:.2f} % of {est.units} simulated units meet every "
+        f"requirement at both ambient extremes (95 % interval {100 * lo:.2f} … "
+        f"{100 * hi:.2f} %; target {100 * target:g} %). The design was chosen among "
+        f"{len(candidates)} standard-value candidates by the lower bound of that interval."
+    ]
+    if lo < target:
+        limiting = ", ".join(f"{k} ({v} units)" for k, v in sorted(
+            est.failures.items(), key=lambda kv: -kv[1]))
+        notes.append(f"The yield target is not met with confidence; failing units fail: "
+                     f"{limiting or 'none'}.")
+        notes += [f"Tighter tolerance: {r}" for r in recommendations(
+            spreads(design, spec), spec, tuple(est.failures))]
+    return design, est, notes, sizing
 
 
 def _fmt_check(c) -> str:

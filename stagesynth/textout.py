@@ -15,6 +15,8 @@ def fmt(value: float, unit: str) -> str:
     """Engineering notation; 'none' for an infinite corner (e.g. DC coupled)."""
     if isinstance(value, float) and math.isinf(value):
         return "none (∞)" if value > 0 else "-∞"
+    if unit == "%":
+        return f"{100 * value:.2f} %"
     if unit == "dB":
         return f"{value:.2f} dB"
     if unit == "Vpp":

@@ -221,3 +221,14 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
                   row.relation, row.unit, row.where, detail)
         )
     return Verdict(tuple(checks))
+
+
+def yield_check(estimate: float, interval: tuple[float, float], target: float) -> Check:
+    """The spec's yield requirement against a Monte Carlo estimate (with its interval)."""
+    return Check("yield", estimate, target, estimate >= target,
+                 (estimate - target) / target, ">=", "%", "built units",
+                 f"95 % interval {100 * interval[0]:.2f} … {100 * interval[1]:.2f} %")
+
+
+def with_checks(verdict: Verdict, *extra: Check) -> Verdict:
+    return Verdict(verdict.checks + tuple(extra))
