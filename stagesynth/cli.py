@@ -290,6 +290,76 @@ def _run_monte_carlo(design, spec, units: int, seed: int, *, quiet: bool):
 
 @app.command()
 @user_errors
+def report(
+    design_file: Annotated[Path, typer.Argument(metavar="DESIGN.json", help="Design file.")],
+    out: Annotated[Path, typer.Option("--out", metavar="DIR", help="Output folder.")],
+    spec: Annotated[
+        Path | None, typer.Option("--spec", metavar="SPEC.toml", help="Judge against this spec.")
+    ] = None,
+    force: Annotated[
+        bool, typer.Option("--force", help="Replace files in DIR that stagesynth did not write.")
+    ] = False,
+) -> None:
+    """Write the report, plots, schematic, parts list and Touchstone file for a design."""
+    from .analysis import analyze as run_analysis
+    from .fileio import OutputDir
+    from .netlist import load_design
+
+    d = load_design(design_file)
+    spec_obj = None
+    verdict = None
+    if spec is not None:
+        from .spec import load_spec
+
+        spec_obj = load_spec(spec)
+    analysis = run_analysis(d, spec_obj)
+    if spec_obj is not None:
+        from .verdict import judge
+
+        verdict = judge(analysis, spec_obj)
+    notes = list(d.extra.get("synthesis", {}).get("notes", [])) or None
+    outdir = OutputDir(out, force=force)
+    written = _write_report(outdir, d, analysis, verdict, spec_obj, notes)
+    typer.echo(f"wrote {', '.join(str(p) for p in written)}")
+    if verdict is not None and not verdict.meets_spec:
+        raise typer.Exit(1)
+
+
+@app.command()
+@user_errors
+def plot(
+    design_file: Annotated[Path, typer.Argument(metavar="DESIGN.json", help="Design file.")],
+    out: Annotated[
+        Path | None,
+        typer.Option("--out", metavar="DIR", help="Output folder (default: beside the design)."),
+    ] = None,
+    spec: Annotated[
+        Path | None, typer.Option("--spec", metavar="SPEC.toml", help="Draw this spec's limits.")
+    ] = None,
+    force: Annotated[
+        bool, typer.Option("--force", help="Replace files in DIR that stagesynth did not write.")
+    ] = False,
+) -> None:
+    """Redraw the Bode and impedance plots of a design (after editing a value)."""
+    from .analysis import analyze as run_analysis
+    from .fileio import OutputDir
+    from .netlist import load_design
+    from .report.bundle import write_plots
+
+    d = load_design(design_file)
+    spec_obj = None
+    if spec is not None:
+        from .spec import load_spec
+
+        spec_obj = load_spec(spec)
+    analysis = run_analysis(d, spec_obj)
+    outdir = OutputDir(out or design_file.parent, force=force)
+    written = write_plots(outdir, d, analysis, spec_obj)
+    typer.echo(f"wrote {', '.join(str(p) for p in written)}")
+
+
+@app.command()
+@user_errors
 def new(
     path: Annotated[Path, typer.Argument(metavar="SPEC.toml", help="Where to write the template.")],
     force: Annotated[bool, typer.Option("--force", help="Overwrite an existing file.")] = False,

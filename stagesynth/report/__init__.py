@@ -1,0 +1,1 @@
+"""Report outputs of a design: schematic, plots, bill of materials, text report."""

@@ -1,0 +1,78 @@
+"""Write the documentation a user files with a design: report, plots, parts list, two-port.
+
+Every target name is checked against the output folder's manifest before anything
+is written, so a refused run leaves the folder untouched. design.json itself is
+written by the caller.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:  # pragma: no cover - typing only
+    from ..analysis import Analysis
+    from ..fileio import OutputDir
+    from ..netlist import Design
+    from ..spec import Spec
+    from ..verdict import Verdict
+
+PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg", "impedance.png")
+BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
+                "stage.s2p")
+
+
+def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
+    """The four plot files' contents (one figure each for Bode and impedance)."""
+    from .plots import bode_figure, figure_png, figure_svg, impedance_figure
+
+    bode = bode_figure(analysis, spec)
+    imp = impedance_figure(analysis, spec)
+    return {
+        "bode.svg": figure_svg(bode),
+        "bode.png": figure_png(bode),
+        "impedance.svg": figure_svg(imp),
+        "impedance.png": figure_png(imp),
+    }
+
+
+def write_plots(out: OutputDir, design: Design, analysis: Analysis,
+                spec: Spec | None = None) -> list[Path]:
+    """Bode and impedance plots as SVG and PNG (for a `plot` command)."""
+    out.check(list(PLOT_FILES))
+    files = _plots(analysis, spec)
+    return [out.write_bytes(name, files[name]) for name in PLOT_FILES]
+
+
+def write_bundle(
+    out: OutputDir,
+    design: Design,
+    analysis: Analysis,
+    verdict: Verdict | None = None,
+    spec: Spec | None = None,
+    notes: Sequence[str] | None = None,
+) -> list[Path]:
+    """Every report file of BUNDLE_FILES, written into `out`; returns their paths."""
+    from .bom import bom_csv, bom_rows
+    from .document import report_html, report_markdown, schematic_svg
+    from .poles import pole_zero_map
+    from .touchstone import stage_network, touchstone_text
+
+    out.check(list(BUNDLE_FILES))
+    contents: dict[str, bytes] = _plots(analysis, spec)
+    svgs = {
+        "schematic": schematic_svg(design),
+        "bode": contents["bode.svg"].decode("utf-8"),
+        "impedance": contents["impedance.svg"].decode("utf-8"),
+    }
+    rows = bom_rows(design, analysis, spec)
+    pz = pole_zero_map(analysis)
+    contents["schematic.svg"] = svgs["schematic"].encode("utf-8")
+    contents["bom.csv"] = bom_csv(design, analysis, spec, rows=rows).encode("utf-8")
+    contents["stage.s2p"] = touchstone_text(stage_network(design, analysis)).encode("latin-1")
+    contents["report.md"] = report_markdown(design, analysis, verdict, spec, notes, bom=rows,
+                                            pz=pz).encode("utf-8")
+    contents["report.html"] = report_html(design, analysis, verdict, spec, notes, svgs=svgs,
+                                          bom=rows, pz=pz).encode("utf-8")
+    return [out.write_bytes(name, contents[name]) for name in BUNDLE_FILES]

@@ -1,0 +1,172 @@
+"""Poles and zeros of the overall gain v_load/v_emf, from the nodal matrices.
+
+With the source (EMF behind its resistance) and the load attached, the node
+equations are (G + sC) v = b u and the output is y = e_out^T v. The poles are the
+finite generalized eigenvalues of the pencil (G, -C); the zeros are those of the
+system matrix [[G + sC, -b], [e_out^T, 0]] (the standard invariant-zero pencil).
+Singular C gives infinite eigenvalues, which are dropped. Results are in Hz (s/2pi).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+if TYPE_CHECKING:  # pragma: no cover - typing only
+    from ..ac import AcSystem
+    from ..analysis import Analysis
+
+_INFINITE = 1e-11  # |beta| / |alpha| below this (after scaling) counts as an infinite root
+_ORIGIN = 1e-9  # |s| / w_mid below this counts as a root at the origin
+_REAL = 1e-7  # |Im| / |s| below this counts as real
+
+
+@dataclass(frozen=True)
+class Root:
+    """One pole or zero: `freq` = s / 2pi in Hz (complex), with a plain-words label."""
+
+    freq: complex
+    label: str  # e.g. "real, left half-plane, below midband"
+
+    @property
+    def s(self) -> complex:
+        """The root in rad/s."""
+        return 2.0 * math.pi * self.freq
+
+    @property
+    def magnitude(self) -> float:
+        """|s| / 2pi: the natural frequency in Hz."""
+        return abs(self.freq)
+
+    @property
+    def q(self) -> float:
+        """Quality factor |s| / (2 |Re s|); 0.5 or less for real roots, inf on the axis."""
+        re = abs(self.freq.real)
+        return math.inf if re == 0 else abs(self.freq) / (2.0 * re)
+
+    @property
+    def is_real(self) -> bool:
+        return self.freq.imag == 0.0
+
+
+@dataclass(frozen=True)
+class PoleZeroMap:
+    """Poles and zeros of v_load/v_emf, each sorted by natural frequency."""
+
+    poles: tuple[Root, ...]
+    zeros: tuple[Root, ...]
+    midband: float  # Hz, separates the low-frequency from the high-frequency roots
+
+    def low_poles(self) -> tuple[Root, ...]:
+        return tuple(p for p in self.poles if p.magnitude < self.midband)
+
+    def high_poles(self) -> tuple[Root, ...]:
+        return tuple(p for p in self.poles if p.magnitude >= self.midband)
+
+    @property
+    def stable(self) -> bool:
+        return all(p.freq.real < 0 for p in self.poles)
+
+
+def _loaded_pencil(system: AcSystem) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, int]:
+    """(G, C, B0, B1, out) of the loaded stage: (G + sC) v = (B0 + s B1) u, y = v[out].
+
+    With a source resistance the input node stays an unknown fed by u/Rs; an ideal
+    source (Rs = 0) fixes it, so its column moves to the right-hand side.
+    """
+    c = system.circuit
+    g = system.G[0].copy()
+    cap = system.C[0].copy()
+    rs = float(system.source_resistance[0])
+    g[c.output, c.output] += 1.0 / float(system.load_resistance[0])
+    cap[c.output, c.output] += float(system.load_capacitance[0])
+    n = c.n
+    if rs > 0:
+        g[c.input, c.input] += 1.0 / rs
+        b0 = np.zeros(n)
+        b0[c.input] = 1.0 / rs
+        return g, cap, b0, np.zeros(n), c.output
+    keep = np.array([k for k in range(n) if k != c.input])
+    out = int(np.flatnonzero(keep == c.output)[0])
+    return (g[np.ix_(keep, keep)], cap[np.ix_(keep, keep)], -g[keep, c.input],
+            -cap[keep, c.input], out)
+
+
+def _finite_eigs(a: np.ndarray, e: np.ndarray, w0: float) -> np.ndarray:
+    """Finite s with det(a + s e) = 0, computed with s scaled by w0 for conditioning."""
+    from scipy.linalg import eig
+
+    w = eig(a, -e * w0, right=False, homogeneous_eigvals=True)
+    alpha, beta = w[0], w[1]
+    finite = np.abs(beta) > _INFINITE * np.abs(alpha)
+    return alpha[finite] / beta[finite] * w0
+
+
+def _clean(roots: np.ndarray, w0: float) -> np.ndarray:
+    """Snap roots at the origin to 0 and nearly real roots to the real axis."""
+    out = []
+    for r in roots:
+        if abs(r) < _ORIGIN * w0:
+            out.append(0j)
+        elif abs(r.imag) < _REAL * abs(r):
+            out.append(complex(r.real, 0.0))
+        else:
+            out.append(complex(r))
+    return np.array(out, dtype=complex)
+
+
+def _label(f: complex, midband: float) -> str:
+    if f == 0:
+        return "at the origin (DC blocked)"
+    side = "left half-plane" if f.real < 0 else "right half-plane" if f.real > 0 else "on the axis"
+    where = "below midband" if abs(f) < midband else "above midband"
+    if f.imag == 0:
+        return f"real, {side}, {where}"
+    q = abs(f) / (2.0 * abs(f.real)) if f.real != 0 else math.inf
+    return f"complex pair, {side}, Q = {q:.2g}, {where}"
+
+
+def _roots(values: np.ndarray, midband: float) -> tuple[Root, ...]:
+    f = values / (2.0 * math.pi)
+    order = np.lexsort((f.imag, np.abs(f)))
+    return tuple(Root(complex(f[i]), _label(complex(f[i]), midband)) for i in order)
+
+
+def pole_zero_map(analysis: Analysis) -> PoleZeroMap:
+    """Poles and zeros of the nominal v_load/v_emf as generalized eigenvalues."""
+    g, cap, b0, b1, out = _loaded_pencil(analysis.system)
+    w0 = 2.0 * math.pi * analysis.midband
+    poles = _clean(_finite_eigs(g, cap, w0), w0)
+    n = g.shape[0]
+    a = np.zeros((n + 1, n + 1))
+    e = np.zeros((n + 1, n + 1))
+    a[:n, :n], e[:n, :n] = g, cap
+    a[:n, n], e[:n, n] = -b0, -b1
+    a[n, out] = 1.0
+    zeros = _clean(_finite_eigs(a, e, w0), w0)
+    return PoleZeroMap(_roots(poles, analysis.midband), _roots(zeros, analysis.midband),
+                       analysis.midband)
+
+
+def corner_estimates(pz: PoleZeroMap) -> tuple[float, float]:
+    """(f_low, f_high) estimated from the roots, for a cross-check of the exact corners.
+
+    The root-sum-square rules for several real poles (Sedra & Smith, from memory):
+    f_low ~ sqrt(sum p^2 - 2 sum z^2) over the low-frequency roots and
+    1/f_high ~ sqrt(sum 1/p^2 - 2 sum 1/z^2) over the high-frequency ones. They hold
+    best when one pole dominates; 0 / inf when there are no such poles.
+    """
+    lows = [p.magnitude for p in pz.poles if p.magnitude < pz.midband]
+    low_zeros = [z.magnitude for z in pz.zeros if 0 < z.magnitude < pz.midband]
+    highs = [p.magnitude for p in pz.poles if p.magnitude >= pz.midband]
+    high_zeros = [z.magnitude for z in pz.zeros if z.magnitude >= pz.midband]
+    f_low = math.sqrt(max(sum(p * p for p in lows) - 2 * sum(z * z for z in low_zeros), 0.0))
+    if highs:
+        inv = sum(1 / (p * p) for p in highs) - 2 * sum(1 / (z * z) for z in high_zeros)
+        f_high = 1.0 / math.sqrt(inv) if inv > 0 else math.inf
+    else:
+        f_high = math.inf
+    return f_low, f_high
