@@ -159,10 +159,16 @@ def design(
     names = ["design.json"] + ([] if no_report else _report_names())
     outdir.check(names)  # refuse before any work is written
     result = synthesize(spec, prefer=prefer)
-    outdir.write_text("design.json", result.design.to_json())
+    from dataclasses import replace
+
+    from .report.poles import pole_zero_map, poles_zeros_dict
+
+    pz = poles_zeros_dict(pole_zero_map(result.analysis))
+    final = replace(result.design, extra={**result.design.extra, "poles_zeros": pz})
+    outdir.write_text("design.json", final.to_json())
     written = [out / "design.json"]
     if not no_report:
-        written += _write_report(outdir, result.design, result.analysis, result.verdict, spec,
+        written += _write_report(outdir, final, result.analysis, result.verdict, spec,
                                  list(result.notes))
     from .textout import analysis_table
 

@@ -170,3 +170,13 @@ def corner_estimates(pz: PoleZeroMap) -> tuple[float, float]:
     else:
         f_high = math.inf
     return f_low, f_high
+
+
+def poles_zeros_dict(pz: PoleZeroMap) -> dict:
+    """JSON-ready form for the design file: each root as [real, imag] of s/2π in Hz."""
+
+    def rows(roots: tuple[Root, ...]) -> list[dict]:
+        return [{"hz": [r.freq.real, r.freq.imag], "type": r.label} for r in roots]
+
+    return {"poles": rows(pz.poles), "zeros": rows(pz.zeros),
+            "method": "generalized eigenvalues of the nodal matrices; s/2π in Hz"}
