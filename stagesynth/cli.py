@@ -145,6 +145,11 @@ def design(
     no_report: Annotated[
         bool, typer.Option("--no-report", help="Write design.json only, no report files.")
     ] = False,
+    circuit: Annotated[
+        str | None,
+        typer.Option("--circuit", metavar="NAME",
+                     help="Force a circuit family (default: the simplest that meets the spec)."),
+    ] = None,
 ) -> None:
     """Synthesize a stage that meets SPEC.toml; write design.json and the report to DIR."""
     from .fileio import OutputDir
@@ -158,7 +163,13 @@ def design(
     outdir = OutputDir(out, force=force)
     names = ["design.json"] + ([] if no_report else _report_names())
     outdir.check(names)  # refuse before any work is written
-    result = synthesize(spec, prefer=prefer)
+    if circuit is not None:
+        from .topologies import FAMILIES
+
+        if circuit not in FAMILIES:
+            raise StageError(f"{circuit!r} is not a circuit family", key="--circuit",
+                             accepted=", ".join(FAMILIES))
+    result = synthesize(spec, prefer=prefer, circuit=circuit)
     from dataclasses import replace
 
     from .report.poles import pole_zero_map, poles_zeros_dict

@@ -121,6 +121,28 @@ class Design:
         )
         return replace(self, parts=parts)
 
+    def shorted(self, ref: str) -> Design:
+        """A copy with two-terminal part `ref` replaced by a wire (its nodes merged).
+
+        The node kept is a terminal (ground, supply, input, output) where one end is;
+        otherwise the first node. Roles naming the part are dropped with it.
+        """
+        part = self.part(ref)
+        if part.is_bjt:
+            raise ValueError(f"{ref} is a transistor; only two-terminal parts can be shorted")
+        a, b = part.nodes
+        fixed = {self.ground, self.supply_node, self.input, self.output}
+        keep, gone = (b, a) if a not in fixed and b in fixed else (a, b)
+        parts = tuple(
+            replace(p, nodes=tuple(keep if n == gone else n for n in p.nodes))
+            for p in self.parts
+            if p.ref != ref
+        )
+        extra = dict(self.extra)
+        if isinstance(extra.get("roles"), Mapping):
+            extra["roles"] = {k: v for k, v in extra["roles"].items() if k != ref}
+        return replace(self, parts=parts, extra=extra)
+
     def values(self) -> dict[str, float]:
         """Values of the passive parts by reference designator."""
         return {p.ref: float(p.value) for p in self.parts if not p.is_bjt and p.value is not None}

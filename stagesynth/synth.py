@@ -31,11 +31,13 @@ from .analysis import Analysis, Environment, analyze, condition_arrays, corner_c
 from .capsizing import size_capacitors
 from .circuit import compile_design
 from .dc import solve_dc
+from .errors import StageError
 from .eseries import nearest, neighbours
 from .evaluate import Conditions, Figures, evaluate
 from .netlist import Design
 from .spec import Spec
-from .topologies import common_emitter as ce
+from .topologies import FAMILIES
+from .topologies.base import FLOOR, Conflict, finalize
 from .verdict import (
     Row,
     Verdict,
@@ -50,18 +52,20 @@ TIE = 0.03  # normalized margins this close to the best count as equal
 YIELD_CANDIDATES = 6  # standard-value candidates judged by Monte Carlo when a yield is asked
 YIELD_SCREEN_UNITS = 1500  # units per candidate while choosing (common random numbers)
 YIELD_FINAL_UNITS = 10_000  # units for the figure written to the design file
-_RE1_FLOOR = 1e-3  # ohm: stands for "no unbypassed resistor" inside the batch
 _LF_SKIP = ("f_low",)  # capacitors are sized after the resistors
 
 
 @dataclass(frozen=True)
-class Conflict:
-    """A requirement no candidate met, with the best value reached and what to relax."""
+class FamilyReport:
+    """How one circuit family fared for the spec (for the choice of circuit)."""
 
     name: str
-    limit: str
-    best: str
-    advice: str
+    title: str
+    stages: int
+    meets: bool
+    worst_margin: float
+    failed: tuple[str, ...]
+    note: str = ""
 
 
 @dataclass(frozen=True)
@@ -73,6 +77,7 @@ class SynthesisResult:
     conflicts: tuple[Conflict, ...]
     notes: tuple[str, ...]
     stats: dict = field(default_factory=dict)
+    families: tuple[FamilyReport, ...] = ()
 
     @property
     def meets_spec(self) -> bool:
@@ -82,11 +87,12 @@ class SynthesisResult:
 class _Search:
     """Holds the compiled circuit and conditions shared by every candidate batch."""
 
-    def __init__(self, spec: Spec) -> None:
+    def __init__(self, spec: Spec, family) -> None:
         self.spec = spec
-        placeholder = {ref: 1e3 for ref in ce.RESISTOR_ROLES}
-        placeholder.update({ref: 1e-6 for ref in ce.CAPACITOR_ROLES})
-        self.template = ce.build(spec, placeholder)
+        self.family = family
+        placeholder = {ref: 1e3 for ref in family.RESISTORS}
+        placeholder.update({ref: 1e-6 for ref in family.CAPACITORS})
+        self.template = family.build(spec, placeholder)
         self.circuit = compile_design(self.template)
         self.env = Environment.for_design(self.template, spec)
         self.conditions = condition_arrays(
@@ -121,15 +127,16 @@ class _Search:
         exact midband gain is on target: secant steps on 1/|A|, nearly linear in RE1."""
         from .ac import linearize
 
-        i4, i5 = self.r_refs.index("R4"), self.r_refs.index("R5")
+        a, b = self.family.GAIN_SPLIT
+        i4, i5 = self.r_refs.index(a), self.r_refs.index(b)
         total = r[:, i4] + r[:, i5]
         k = r.shape[0]
         nominal = Conditions(self.conditions.hfe25[:1], self.conditions.ambient[:1],
                              self.conditions.supply[:1])
         d = self.template
         r0 = r.copy()
-        r0[:, i4] = _RE1_FLOOR
-        r0[:, i5] = total - _RE1_FLOOR
+        r0[:, i4] = FLOOR
+        r0[:, i5] = total - FLOOR
         dc = solve_dc(self.circuit, r0, np.repeat(nominal.supply, k),
                       np.repeat(nominal.hfe25, k, axis=0), np.repeat(nominal.ambient, k),
                       d.source_resistance, d.load_resistance)
@@ -145,7 +152,7 @@ class _Search:
             return 1.0 / np.maximum(np.abs(sys.gain(fm)[:, 0]), 1e-30)
 
         target = 1.0 / self.spec.require.gain
-        lo, hi = _RE1_FLOOR, total - _RE1_FLOOR
+        lo, hi = FLOOR, total - FLOOR
         x0 = np.clip(re1, lo, hi)
         x1 = np.clip(x0 * 1.2 + 1.0, lo, hi)
         y0, y1 = inv_gain(x0), inv_gain(x1)
@@ -191,20 +198,6 @@ def _physics_conflicts(spec: Spec) -> list[Conflict]:
             f"most between the supply ({vmin:.3g} V at its low tolerance) and "
             f"VCE(sat) = {dev.vce_sat:.3g} V",
             "ask for less swing, or raise the supply voltage",
-        ))
-    gbw = r.gain * r.f_high
-    if gbw > dev.ft:
-        out.append(Conflict(
-            "f_high", f"{r.f_high:.4g} Hz at {r.gain:.3g} V/V",
-            f"one transistor's gain × bandwidth stays below fT = {dev.ft:.4g} Hz; "
-            f"this asks {gbw:.4g} Hz",
-            "lower the gain or f_high, or choose a transistor with a higher fT",
-        ))
-    if r.inverting == "no":
-        out.append(Conflict(
-            "inverting", "no", "a common-emitter stage always inverts",
-            'set inverting = "any" or "yes" (non-inverting circuits come with the '
-            "follower and two-stage families)",
         ))
     return out
 
@@ -289,19 +282,114 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
     return "relax this requirement"
 
 
-def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
-    """Design a common-emitter stage for `spec` (see the module docstring for the search)."""
+def synthesize(
+    spec: Spec, *, prefer: str = "margin", circuit: str | None = None
+) -> SynthesisResult:
+    """Design a stage for `spec`: the simplest circuit family that meets every
+    requirement, with the best margin among those of that size; `circuit` forces one."""
+    if circuit is not None:
+        if circuit not in FAMILIES:
+            raise StageError(f"{circuit!r} is not a circuit stagesynth knows",
+                             key="--circuit", accepted=", ".join(FAMILIES))
+        result = _synthesize_family(spec, FAMILIES[circuit], prefer)
+        report = _family_report(FAMILIES[circuit], result)
+        note = f"Circuit: {FAMILIES[circuit].TITLE}, as asked (--circuit {circuit})."
+        return _with_choice(result, (report,), [note])
+    reports: list[FamilyReport] = []
+    results: list[tuple[FamilyReport, SynthesisResult]] = []
+    for stages in sorted({f.STAGES for f in FAMILIES.values()}):
+        for name, family in FAMILIES.items():
+            if stages != family.STAGES:
+                continue
+            blocked = family.precheck(spec)
+            if blocked:
+                reports.append(FamilyReport(name, family.TITLE, stages, False, -math.inf,
+                                            tuple(c.name for c in blocked),
+                                            "; ".join(c.best for c in blocked)))
+                continue
+            res = _synthesize_family(spec, family, prefer)
+            rep = _family_report(family, res)
+            reports.append(rep)
+            results.append((rep, res))
+        meeting = [(rep, res) for rep, res in results if rep.meets]
+        if meeting:
+            rep, res = max(meeting, key=lambda pair: pair[0].worst_margin)
+            return _with_choice(res, tuple(reports), _choice_notes(rep, reports))
+    if not results:  # every family blocked outright
+        family = next(iter(FAMILIES.values()))
+        res = _synthesize_family(spec, family, prefer)
+        return _with_choice(res, tuple(reports), _choice_notes(None, reports))
+    rep, res = max(results, key=lambda pair: pair[0].worst_margin)
+    return _with_choice(res, tuple(reports), _choice_notes(None, reports))
+
+
+def _family_report(family, result: SynthesisResult) -> FamilyReport:
+    margins = [c.margin for c in result.verdict.checks if math.isfinite(c.margin)]
+    return FamilyReport(
+        family.NAME, family.TITLE, family.STAGES, result.meets_spec,
+        min(margins, default=math.inf), tuple(c.name for c in result.verdict.failed),
+    )
+
+
+def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport]) -> list[str]:
+    """Which circuit was chosen, and what each other family reached (for the report)."""
+    lines = []
+    for r in reports:
+        if r.note:
+            lines.append(f"{r.title}: not tried ({r.note}).")
+        elif r.meets:
+            lines.append(f"{r.title}: meets every requirement, smallest margin "
+                         f"{100 * r.worst_margin:+.0f} %.")
+        else:
+            lines.append(f"{r.title}: fails {', '.join(r.failed)}.")
+    if chosen is None:
+        head = "Circuit choice: no family met every requirement; the closest is shown."
+    else:
+        simpler = [r for r in reports if r.stages < chosen.stages]
+        why = ""
+        if simpler:
+            drove = sorted({name for r in simpler for name in r.failed})
+            why = (f" No single-stage circuit could: the requirement(s) that drove the "
+                   f"choice: {', '.join(drove)}.")
+        head = (f"Circuit choice: {chosen.title}, the simplest circuit that meets every "
+                f"requirement with the best margin.{why}")
+    return [head, *lines]
+
+
+def _with_choice(result: SynthesisResult, reports: tuple[FamilyReport, ...],
+                 notes: list[str]) -> SynthesisResult:
+    """Attach the circuit choice to the result, its notes and its design file."""
+    all_notes = (*notes, *result.notes)
+    extra = dict(result.design.extra)
+    synthesis = dict(extra.get("synthesis", {}))
+    synthesis["notes"] = list(all_notes)
+    synthesis["families"] = [
+        {"circuit": r.name, "title": r.title, "stages": r.stages, "meets_spec": r.meets,
+         "smallest_margin": r.worst_margin if math.isfinite(r.worst_margin) else None,
+         "failed": list(r.failed), "note": r.note}
+        for r in reports
+    ]
+    extra["synthesis"] = synthesis
+    design = Design(**{**result.design.__dict__, "extra": extra})
+    analysis = Analysis(**{**result.analysis.__dict__, "design": design})
+    return SynthesisResult(result.spec, design, analysis, result.verdict, result.conflicts,
+                           all_notes, result.stats, reports)
+
+
+def _synthesize_family(spec: Spec, family, prefer: str) -> SynthesisResult:
+    """The search of the module docstring for one circuit family."""
     t0 = time.perf_counter()
-    search = _Search(spec)
-    physics = _physics_conflicts(spec)
+    search = _Search(spec, family)
+    physics = [*_physics_conflicts(spec), *family.precheck(spec)]
 
     # 2-4: first cut, exact gain split, exact judgement at every corner
-    cut = ce.first_cut(spec)
+    cut = family.first_cut(spec)
     values = dict(cut.values)
-    r = search.r_matrix(values)
-    values["R4"] = search.tune_gain(r, ce.first_re1(spec, cut))
-    total = cut.values["R5"]
-    values["R5"] = total - values["R4"]
+    if family.GAIN_SPLIT is not None and cut.knob is not None:
+        a, b = family.GAIN_SPLIT
+        total = cut.values[a] + cut.values[b]
+        values[a] = search.tune_gain(search.r_matrix(values), cut.knob)
+        values[b] = total - values[a]
     r = search.r_matrix(values)
     fig = search.evaluate(r)
     rows = assess(fig, spec, search.circuit)
@@ -309,20 +397,27 @@ def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
     t_search = time.perf_counter()
 
     # 5: standard values for the best few continuous candidates
-    top = order[: min(4, order.size)]
     series = spec.parts.resistors
+    wide = len(search.r_refs) <= 6  # three values a part while the product stays small
+    top = order[: min(4 if wide else 2, order.size)]
     snapped = []
     for i in top:
         options = []
-        for ref in search.r_refs:
-            v = float(r[i, search.r_refs.index(ref)])
-            if ref == "R4" and v < 0.5:
-                options.append([_RE1_FLOOR])  # no unbypassed resistor
+        for j, ref in enumerate(search.r_refs):
+            v = float(r[i, j])
+            if ref in family.OPTIONAL and v < 0.5:
+                options.append([FLOOR])  # leave the part out
                 continue
-            opts = sorted({nearest(v, series), *neighbours(v, series, 1)})
-            opts = [x for x in opts if 0.7 * v <= x <= 1.4 * v] or [nearest(v, series)]
-            if ref == "R4":
-                opts = [_RE1_FLOOR, *opts] if v < 5.0 else opts
+            if wide:
+                opts = sorted({nearest(v, series), *neighbours(v, series, 1)})
+                opts = [x for x in opts if 0.7 * v <= x <= 1.4 * v] or [nearest(v, series)]
+            else:  # the two standard values that bracket it
+                around = neighbours(v, series, 1)
+                opts = [max([x for x in around if x <= v] or [around[0]]),
+                        min([x for x in around if x >= v] or [around[-1]])]
+                opts = sorted(set(opts))
+            if ref in family.OPTIONAL and v < 5.0:
+                opts = [FLOOR, *opts]
             options.append(opts)
         snapped.extend(itertools.product(*options))
     rs = np.array(snapped)
@@ -336,7 +431,7 @@ def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
         chosen = {ref: float(rs[i, j]) for j, ref in enumerate(search.r_refs)}
         chosen.update({ref: float(v) for ref, v in zip(search.c_refs, search.c_big,
                                                          strict=True)})
-        sized = size_capacitors(_drop_zero_re1(spec, chosen), spec.require.f_low,
+        sized = size_capacitors(finalize(family, spec, chosen), spec.require.f_low,
                                 env=search.env, series=spec.parts.capacitors,
                                 tolerance=spec.parts.capacitor_tolerance)
         return sized.design, sized
@@ -361,18 +456,17 @@ def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
         found = {c.name: c for c in _conflicts(rows, spec)}
         for c in physics:  # the physical reason first, with the best value searched
             near = found.pop(c.name, None)
-            best = f"{near.best}; {c.best}" if near else c.best
-            conflicts.append(Conflict(c.name, c.limit, best, c.advice))
+            best_text = f"{near.best}; {c.best}" if near else c.best
+            conflicts.append(Conflict(c.name, c.limit, best_text, c.advice))
         conflicts.extend(found.values())
         if not conflicts:  # near misses after snapping: report the snapped figures
             for c in verdict.failed:
                 conflicts.append(Conflict(c.name, str(c.limit), _fmt_check(c),
                                           _advice(c.name, float(c.value), spec, c.unit)))
-    ic = analysis.nominal.transistors["Q1"].ic
-    vce = analysis.nominal.transistors["Q1"].vce
+    polarity = "PNP" if spec.transistor.polarity == "pnp" else "NPN"
     notes = [
-        f"Circuit: {ce.TITLE} ({'PNP mirror' if spec.transistor.polarity == 'pnp' else 'NPN'}).",
-        *ce.describe(spec, design.values(), ic, vce),
+        f"Circuit: {family.TITLE} ({polarity}).",
+        *family.describe(spec, design, analysis),
         *sizing.notes,
         *yield_notes,
         "Choice among candidates: every design meeting all requirements was ranked by its "
@@ -389,6 +483,7 @@ def synthesize(spec: Spec, *, prefer: str = "margin") -> SynthesisResult:
         "objective": "largest smallest-margin, then lower supply current"
         if prefer != "current" else "lower supply current, then largest smallest-margin",
         "prefer": prefer,
+        "circuit": family.NAME,
         "candidates": int(cut.count),
         "standard_value_combinations": len(snapped),
         "resistor_series": series,
@@ -461,19 +556,3 @@ def _fmt_check(c) -> str:
     from .textout import check_value
 
     return check_value(c)
-
-
-def _drop_zero_re1(spec: Spec, values: dict[str, float]) -> Design:
-    """Build the design; an RE1 at the floor value means no unbypassed resistor at all."""
-    design = ce.build(spec, values)
-    if values["R4"] > _RE1_FLOOR:
-        return design
-    parts = []
-    for p in design.parts:
-        if p.ref == "R4":
-            continue
-        nodes = tuple("e1" if n == "x1" else n for n in p.nodes)
-        parts.append(type(p)(p.ref, p.kind, nodes, p.value, p.device))
-    roles = {k: v for k, v in design.extra["roles"].items() if k != "R4"}
-    return Design(**{**design.__dict__, "parts": tuple(parts),
-                     "extra": {**design.extra, "roles": roles}})

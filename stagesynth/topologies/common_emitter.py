@@ -16,19 +16,21 @@ split RE1/RE2 is then set by the synthesizer so that the exact gain is on target
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
 from ..device import T_REF_C, Device, thermal_voltage
 from ..netlist import Design, Part
 from ..spec import Spec
+from .base import Conflict, FirstCut
 
 NAME = "ce"
 TITLE = "common emitter, divider bias, split emitter resistor"
-RESISTOR_ROLES = ("R1", "R2", "R3", "R4", "R5")  # top, bottom, RC, RE1, RE2
-CAPACITOR_ROLES = ("C1", "C2", "C3")
+STAGES = 1
+RESISTORS = ("R1", "R2", "R3", "R4", "R5")  # top, bottom, RC, RE1, RE2
+CAPACITORS = ("C1", "C2", "C3")
+RESISTOR_ROLES, CAPACITOR_ROLES = RESISTORS, CAPACITORS
 GAIN_SPLIT = ("R4", "R5")  # moving resistance between these keeps the DC point
+OPTIONAL = frozenset({"R4"})  # a fully bypassed emitter needs no RE1
 
 
 def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
@@ -77,21 +79,6 @@ def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
             "conditions": {"ambient": list(r.ambient), "supply_tolerance": spec.supply.tolerance},
         },
     )
-
-
-@dataclass(frozen=True)
-class FirstCut:
-    """K continuous candidates: part values by role, and the design variables behind them."""
-
-    values: dict[str, np.ndarray]  # role -> (K,)
-    ic: np.ndarray
-    ve: np.ndarray
-    vce: np.ndarray
-    stiffness: np.ndarray  # (hfe_min + 1) * RE / RTH
-
-    @property
-    def count(self) -> int:
-        return self.ic.shape[0]
 
 
 def _vbe(dev: Device, ic: np.ndarray) -> np.ndarray:
@@ -148,20 +135,19 @@ def first_cut(spec: Spec, *, ic_points: int = 14) -> FirstCut:
     r_ground_side = rth * vcc / (vcc - vth)
     if dev.polarity == "pnp":  # mirror: the base sits VTH below the supply
         r_supply_side, r_ground_side = r_ground_side, r_supply_side
-    re1 = np.full_like(re, 0.0)
     values = {
         "R1": r_supply_side,
         "R2": r_ground_side,
         "R3": rc,
-        "R4": re1,
+        "R4": np.zeros_like(re),  # the synthesizer moves part of RE here for the gain
         "R5": re,
     }
     values = {k: v[keep] for k, v in values.items()}
-    return FirstCut(values=values, ic=IC[keep], ve=ve[keep], vce=vce[keep],
-                    stiffness=K[keep])
+    info = {"ic": IC[keep], "ve": ve[keep], "vce": vce[keep], "stiffness": K[keep]}
+    return FirstCut(values=values, knob=_first_re1(spec, values, IC[keep]), info=info)
 
 
-def first_re1(spec: Spec, cut: FirstCut) -> np.ndarray:
+def _first_re1(spec: Spec, values: dict[str, np.ndarray], ic: np.ndarray) -> np.ndarray:
     """Analytic RE1 for the target gain: |A| = Kin * Rac / (re + RE1) (Sedra & Smith form).
 
     Kin = Rin / (Rin + Rs) with Rin = RTH || (beta + 1)(re + RE1), iterated twice.
@@ -169,20 +155,40 @@ def first_re1(spec: Spec, cut: FirstCut) -> np.ndarray:
     """
     dev = spec.transistor
     beta = dev.hfe_nominal
-    re_small = thermal_voltage(T_REF_C) / cut.ic + dev.r_bb / (beta + 1.0)
-    rac = cut.values["R3"] * spec.load.resistance / (cut.values["R3"] + spec.load.resistance)
-    rth = cut.values["R1"] * cut.values["R2"] / (cut.values["R1"] + cut.values["R2"])
+    re_small = thermal_voltage(T_REF_C) / ic + dev.r_bb / (beta + 1.0)
+    rac = values["R3"] * spec.load.resistance / (values["R3"] + spec.load.resistance)
+    rth = values["R1"] * values["R2"] / (values["R1"] + values["R2"])
     target = spec.require.gain
     re1 = np.zeros_like(rac)
     for _ in range(3):
         rin = rth * (beta + 1) * (re_small + re1) / (rth + (beta + 1) * (re_small + re1))
         kin = rin / (rin + spec.source.resistance)
-        re1 = np.clip(kin * rac / target - re_small, 0.0, cut.values["R5"])
+        re1 = np.clip(kin * rac / target - re_small, 0.0, values["R5"])
     return re1
 
 
-def describe(spec: Spec, values: dict[str, float], ic: float, vce: float) -> list[str]:
+def precheck(spec: Spec) -> list[Conflict]:
+    """What a single common-emitter stage can never do."""
+    out = []
+    r = spec.require
+    if r.inverting == "no":
+        out.append(Conflict("inverting", "no", "a common-emitter stage always inverts",
+                            'set inverting = "any" or "yes", or use a non-inverting circuit'))
+    gbw = r.gain * r.f_high
+    if gbw > spec.transistor.ft:
+        out.append(Conflict(
+            "f_high", f"{r.f_high:.4g} Hz at {r.gain:.3g} V/V",
+            f"one transistor's gain × bandwidth stays below fT = {spec.transistor.ft:.4g} Hz; "
+            f"this asks {gbw:.4g} Hz",
+            "lower the gain or f_high, use two stages, or a transistor with a higher fT"))
+    return out
+
+
+def describe(spec: Spec, design: Design, analysis) -> list[str]:
     """Plain-language reasons for this bias point and split (for the report)."""
+    values = design.values()
+    ic = analysis.nominal.transistors["Q1"].ic
+    vce = analysis.nominal.transistors["Q1"].vce
     dev = spec.transistor
     vcc = spec.supply.voltage
     rc, re1, re2 = values["R3"], values.get("R4", 0.0), values.get("R5", 0.0)
