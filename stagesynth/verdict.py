@@ -98,27 +98,63 @@ def assess(
         rows.append(_at_most("supply_current", cur[np.arange(cur.shape[0]), j],
                              r.supply_current, "A", "every corner", j + first_corner))
     if ratings:
-        rows.extend(_rating_rows(fig, circuit))
+        rows.extend(_rating_rows(fig, circuit, corners))
     return rows
 
 
-def _rating_rows(fig: Figures, circuit: Circuit) -> list[Row]:
-    """Absolute ratings of each transistor at its worst corner, when the device gives them."""
+TJ_MAX_DEFAULT = 150.0  # degC, common practice for small-signal silicon without a figure
+
+
+def junction_limit(device) -> float:
+    """Tj(max): 25 degC plus p_max * theta_ja when both are given (the rating's own
+    thermal path), else TJ_MAX_DEFAULT (common practice)."""
+    if device.p_max is not None and device.theta_ja is not None:
+        return 25.0 + device.p_max * device.theta_ja
+    return TJ_MAX_DEFAULT
+
+
+def derated_power(device, ambient):
+    """p_max derated linearly from 25 degC ambient to zero at Tj(max)."""
+    tj_max = junction_limit(device)
+    return device.p_max * np.clip((tj_max - ambient) / (tj_max - 25.0), 0.0, None)
+
+
+def _rating_rows(fig: Figures, circuit: Circuit, corners: slice = slice(1, None)) -> list[Row]:
+    """Absolute ratings of each transistor at its worst corner, when the device gives them.
+
+    Dissipation is judged against p_max derated to the corner's ambient, recovered from
+    the self-heating model as Ta = Tj - theta_ja * P.
+    """
     rows = []
     supply_max = float(np.max(fig.dc.v[:, circuit.supply]))
     for qi, q in enumerate(circuit.bjts):
+        dev = q.device
         for field, attr, unit in (("ic_max", "ic", "A"), ("vce_max", "vce", "V"),
                                   ("p_max", "power", "W")):
-            rating = getattr(q.device, field)
+            rating = getattr(dev, field)
             if rating is None:
                 continue
-            vals = fig.per_condition(attr)[:, 1:, qi]
+            vals = fig.per_condition(attr)[:, corners, qi]
+            if field == "p_max":
+                tj = fig.per_condition("tj")[:, corners, qi]
+                ambient = tj - (dev.theta_ja or 0.0) * vals
+                allowed = derated_power(dev, ambient)
+                use = vals / np.maximum(allowed, 1e-300)  # fraction of the allowance
+                j = np.argmax(use, axis=1)
+                k = np.arange(vals.shape[0])
+                worst, limit = vals[k, j], allowed[k, j]
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    margin = np.where(limit > 0, (limit - worst) / limit, -np.inf)
+                rows.append(Row(f"{q.ref}.p_max", worst, rating, worst <= limit, margin, "<=",
+                                unit, "every corner, derated", j + corners.start))
+                continue
             j = np.argmax(vals, axis=1)
             worst = vals[np.arange(vals.shape[0]), j]
             if field == "vce_max":
                 # at cutoff the collector-emitter voltage reaches the supply: judge that
                 worst = np.maximum(worst, supply_max)
-            rows.append(_at_most(f"{q.ref}.{field}", worst, rating, unit, "every corner", j + 1))
+            rows.append(_at_most(f"{q.ref}.{field}", worst, rating, unit, "every corner",
+                                 j + corners.start))
     return rows
 
 
@@ -216,6 +252,9 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
                 detail += f": {why}"
             elif row.name == "active":
                 detail = ""
+            if row.name.endswith(".p_max") and math.isfinite(float(row.margin[0])):
+                allowed = float(row.value[0]) / max(1.0 - float(row.margin[0]), 1e-300)
+                detail = f"allowance derated to {allowed * 1e3:.4g} mW there; " + detail
         checks.append(
             Check(row.name, value, row.limit, bool(row.ok[0]), float(row.margin[0]),
                   row.relation, row.unit, row.where, detail)
