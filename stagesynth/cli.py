@@ -103,8 +103,10 @@ def analyze(
                                          spec_obj.require.yield_target))
     if as_json:
         from .netlist import _clean_floats
+        from .stability import robustness
 
         out = analysis_to_dict(analysis, verdict)
+        out["robustness"] = robustness(analysis)
         out.update(extra)
         typer.echo(json.dumps(_clean_floats(out), indent=2))
     else:
@@ -173,9 +175,11 @@ def design(
     from dataclasses import replace
 
     from .report.poles import pole_zero_map, poles_zeros_dict
+    from .stability import robustness
 
     pz = poles_zeros_dict(pole_zero_map(result.analysis))
-    final = replace(result.design, extra={**result.design.extra, "poles_zeros": pz})
+    final = replace(result.design, extra={**result.design.extra, "poles_zeros": pz,
+                                          "robustness": robustness(result.analysis)})
     outdir.write_text("design.json", final.to_json())
     written = [out / "design.json"]
     if not no_report:

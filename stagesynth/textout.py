@@ -17,6 +17,8 @@ def fmt(value: float, unit: str) -> str:
         return "none (∞)" if value > 0 else "-∞"
     if unit == "%":
         return f"{100 * value:.2f} %"
+    if unit == "":
+        return f"{value:.3g}"
     if unit == "dB":
         return f"{value:.2f} dB"
     if unit == "Vpp":

@@ -259,7 +259,25 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
             Check(row.name, value, row.limit, bool(row.ok[0]), float(row.margin[0]),
                   row.relation, row.unit, row.where, detail)
         )
+    checks.extend(_runaway_checks(analysis))
     return Verdict(tuple(checks))
+
+
+def _runaway_checks(analysis: Analysis) -> list[Check]:
+    """Thermal runaway: the loop gain theta_ja * dP/dTj must stay below 1 on the way from
+    the ambient to the hottest corner's junction temperature (transistors with theta_ja)."""
+    from .stability import thermal_checks
+
+    out = []
+    for t in thermal_checks(analysis):
+        dev = analysis.design.devices[analysis.design.part(t.ref).device]
+        if dev.theta_ja is None:
+            continue
+        loop = max(t.loop_gain, t.loop_gain_peak)
+        out.append(Check(f"{t.ref}.thermal_runaway", loop, 1.0, not t.runaway,
+                         1.0 - loop, "<", "", "hottest corner",
+                         f"loop gain θJA·∂P/∂Tj at {t.ambient_hot:g} °C ambient"))
+    return out
 
 
 def yield_check(estimate: float, interval: tuple[float, float], target: float) -> Check:

@@ -20,7 +20,7 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
 
 PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg", "impedance.png")
 BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
-                "stage.s2p")
+                "stage.s2p", "histograms.svg")
 
 
 def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
@@ -68,11 +68,22 @@ def write_bundle(
     }
     rows = bom_rows(design, analysis, spec)
     pz = pole_zero_map(analysis)
+    from ..robustness import assess_robustness
+
+    rob = assess_robustness(design, analysis, spec)
+    names = list(BUNDLE_FILES)
+    if rob.yield_estimate is not None and spec is not None:
+        from .plots import figure_svg, histogram_figure
+
+        contents["histograms.svg"] = figure_svg(histogram_figure(rob.yield_estimate, spec))
+        svgs["histograms"] = contents["histograms.svg"].decode("utf-8")
+    else:
+        names.remove("histograms.svg")
     contents["schematic.svg"] = svgs["schematic"].encode("utf-8")
     contents["bom.csv"] = bom_csv(design, analysis, spec, rows=rows).encode("utf-8")
     contents["stage.s2p"] = touchstone_text(stage_network(design, analysis)).encode("latin-1")
     contents["report.md"] = report_markdown(design, analysis, verdict, spec, notes, bom=rows,
-                                            pz=pz).encode("utf-8")
+                                            pz=pz, robustness=rob).encode("utf-8")
     contents["report.html"] = report_html(design, analysis, verdict, spec, notes, svgs=svgs,
-                                          bom=rows, pz=pz).encode("utf-8")
-    return [out.write_bytes(name, contents[name]) for name in BUNDLE_FILES]
+                                          bom=rows, pz=pz, robustness=rob).encode("utf-8")
+    return [out.write_bytes(name, contents[name]) for name in names]

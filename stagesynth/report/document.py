@@ -25,7 +25,8 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
     from ..verdict import Verdict
     from .poles import PoleZeroMap
 
-FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg"}
+FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg",
+                "histograms": "histograms.svg"}
 
 SAFETY = (
     "Check every voltage and power rating with margin against the worst case in this "
@@ -208,6 +209,7 @@ def build_document(
     *,
     bom: Sequence[Mapping[str, str]] | None = None,
     pz: PoleZeroMap | None = None,
+    robustness=None,
 ) -> Document:
     """The report's content, independent of the output format."""
     from .. import __version__
@@ -301,6 +303,8 @@ def build_document(
     if not pz.stable:
         pz_blocks.append("Warning: a pole lies in the right half-plane: the stage is unstable.")
     sections.append(Section("Poles and zeros", tuple(pz_blocks)))
+    if robustness is not None:
+        sections.append(_robustness_section(robustness, spec))
     if notes:
         sections.append(Section("Design rationale", (list(notes),)))
     else:
@@ -309,6 +313,85 @@ def build_document(
         )))
     sections.append(Section("Safety", (list(SAFETY),), css_class="safety"))
     return Document(title, subtitle, status, ok, tuple(sections))
+
+
+def _robustness_section(rob, spec: Spec | None) -> Section:
+    """Yield, spread, bias stability and thermal margins: building many units."""
+    blocks: list = []
+    est = rob.yield_estimate
+    if est is not None and spec is not None:
+        lo, hi = est.interval
+        p = spec.parts
+        blocks.append(
+            f"Yield: {100 * est.estimate:.2f} % of {est.units} simulated units meet every "
+            f"requirement at both ambient extremes (95 % Wilson interval {100 * lo:.2f} … "
+            f"{100 * hi:.2f} %; seed {est.seed}, reproducible with `stagesynth analyze "
+            f"DESIGN.json --spec SPEC.toml --yield {est.units} --seed {est.seed}`). Each "
+            f"resistor is uniform within ±{100 * p.resistor_tolerance:g} %, each capacitor "
+            f"within ±{100 * p.capacitor_tolerance:g} %, hFE log-uniform over its spread and "
+            f"the supply within ±{100 * spec.supply.tolerance:g} %."
+            + (f" Target: {100 * spec.require.yield_target:g} %."
+               if spec.require.yield_target is not None else ""))
+        if est.failures:
+            blocks.append([f"{count} units fail {name}" for name, count in
+                           sorted(est.failures.items(), key=lambda kv: -kv[1])])
+        blocks.append(Figure("histograms", "Monte Carlo histograms",
+                             "Spread of gain, f_low, f_high and swing over the simulated "
+                             "units (each at its worse ambient), with the spec's limits."))
+    if rob.spreads:
+        rows = []
+        for sp in rob.spreads:
+            if sp.limit is None:
+                continue
+            top = ", ".join(f"{c.source} {100 * c.share:.0f} %" for c in sp.contributions[:3])
+            limit = (f"{sp.limit[0]:.2f} … {sp.limit[1]:.2f} dB" if isinstance(sp.limit, tuple)
+                     else fmt(float(sp.limit), sp.unit))
+            unit = "dB" if sp.unit == "dB" else sp.unit
+            rows.append((sp.figure, fmt(sp.nominal, unit), fmt(sp.worst_case, unit), limit,
+                         "pass" if sp.worst_ok else "FAIL", top))
+        blocks.append("Sensitivity: each source's share of a figure's variance (uniform over "
+                      "its tolerance), and the linear worst case with every source at the "
+                      "end of its range that hurts (judged at the worse ambient).")
+        blocks.append(Table(("figure", "nominal", "worst case", "limit", "worst case ok",
+                             "largest contributors"), tuple(rows), numeric=(1, 2), status=4))
+        if rob.advice:
+            blocks.append(["Tighter tolerance: " + a for a in rob.advice])
+    if rob.stability:
+        rows = []
+        for f in rob.stability:
+            st = f.stiffness
+            rows.append((
+                f.ref, fmt(f.ic, "A"), f"{f.s_i:.3g}", f"{f.s_v * 1e3:.3g} mA/V",
+                f"{f.s_beta * 1e6:.3g} µA",
+                f"{st.ratio:.3g}" if st is not None else "n/a",
+                f"{f.ic_spread_hfe_pct:+.1f} %", f"{f.ic_spread_ambient_pct:+.1f} %",
+            ))
+        blocks.append("Bias stability (textbook definitions, e.g. Sedra & Smith): S_I = "
+                      "∂IC/∂ICBO, S_V = ∂IC/∂VBE, S_β = ∂IC/∂hFE, from the DC solver; divider "
+                      "ratio RTH / ((hFE_min + 1)·RE) (common practice: 0.1 or less for a "
+                      "stiff bias); "
+                      "IC change across the hFE spread and across the ambient range.")
+        blocks.append(Table(("transistor", "IC", "S_I", "S_V", "S_β", "RTH/(β+1)RE",
+                             "IC over hFE", "IC over ambient"), tuple(rows),
+                            numeric=(1, 2, 3, 4, 5, 6, 7)))
+    if rob.thermal:
+        rows = []
+        for t in rob.thermal:
+            rows.append((
+                t.ref, fmt(t.p_hot, "W"), f"{t.ambient_hot:g} °C",
+                fmt(t.p_allowed, "W") if t.p_allowed is not None else "no rating",
+                f"{100 * t.margin:+.0f} %" if t.margin is not None else "",
+                f"{t.loop_gain:.3g}", "pass" if t.ok else "FAIL",
+            ))
+        blocks.append("Thermal safety: dissipation at the hottest corner against the rating "
+                      "derated to that ambient, and the thermal loop gain θJA·∂P/∂Tj "
+                      "(runaway when it reaches 1).")
+        blocks.append(Table(("transistor", "dissipation", "at ambient", "derated allowance",
+                             "margin", "loop gain", "result"), tuple(rows),
+                            numeric=(1, 3, 4, 5), status=6))
+        if rob.violations:
+            blocks.append(["Violation: " + v for v in rob.violations])
+    return Section("Robustness: building many units", tuple(blocks))
 
 
 # ---------------------------------------------------------------------------

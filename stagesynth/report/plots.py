@@ -343,3 +343,60 @@ def figure_png(fig: Figure, dpi: int = 150) -> bytes:
     with matplotlib.rc_context(_STYLE):
         fig.savefig(buf, format="png", dpi=dpi)
     return buf.getvalue()
+
+
+_HIST_PANELS = (
+    ("gain_db", "gain (worse ambient)", "dB"),
+    ("f_low", "f_low (worse ambient)", "Hz"),
+    ("f_high", "f_high (worse ambient)", "Hz"),
+    ("swing_vpp", "swing (worse ambient)", "Vpp"),
+)
+
+
+def histogram_figure(estimate, spec: Spec) -> Figure:
+    """Monte Carlo spread of gain, f_low, f_high and swing, with the spec's limits drawn.
+
+    Each unit contributes its value at the worse of the two ambient extremes, so a unit
+    is inside every limit drawn here exactly when it passes those requirements.
+    """
+    r = spec.require
+    limits = {
+        "gain_db": (r.gain_db - r.gain_tolerance_db, r.gain_db + r.gain_tolerance_db),
+        "f_low": (None, r.f_low),
+        "f_high": (r.f_high, None),
+        "swing_vpp": (r.swing_vpp if r.swing_vpp > 0 else None, None),
+    }
+    fig = _new_figure(8.6, 5.6)
+    axes = fig.subplots(2, 2)
+    for ax, (key, title, unit) in zip(axes.ravel(), _HIST_PANELS, strict=True):
+        vals = np.asarray(estimate.metrics[key], dtype=float)
+        vals = vals[np.isfinite(vals)]
+        lo, hi = limits[key]
+        if vals.size:
+            span = [vals.min(), vals.max()]
+            for x in (lo, hi):
+                if x is not None:
+                    span += [x]
+            pad = 0.05 * (max(span) - min(span) or abs(max(span)) or 1.0)
+            bins = np.linspace(min(span) - pad, max(span) + pad, 41)
+            ax.hist(vals, bins=bins, color=BLUE, alpha=0.85, edgecolor="white", linewidth=0.4)
+        for x, side in ((lo, "lower"), (hi, "upper")):
+            if x is not None:
+                ax.axvline(x, color=ORANGE, linewidth=1.6,
+                           label=f"spec {side} limit {eng_label(x, unit)}")
+        ax.set_title(title, fontsize=10, color=INK, loc="left")
+        ax.set_ylabel("units", fontsize=9)
+        if unit != "dB":
+            ax.xaxis.set_major_formatter(
+                __import__("matplotlib.ticker", fromlist=["FuncFormatter"]).FuncFormatter(
+                    lambda v, _pos, u=unit: eng_label(v, u)))
+        ax.tick_params(labelsize=8)
+        ax.grid(True, color=GRID_MINOR, linewidth=0.5)
+        ax.set_axisbelow(True)
+        if lo is not None or hi is not None:
+            ax.legend(fontsize=7.5, frameon=False, loc="upper right")
+    fig.suptitle(
+        f"Monte Carlo: {estimate.units} units, {100 * estimate.estimate:.2f} % meet every "
+        f"requirement (seed {estimate.seed})", fontsize=10.5, x=0.02, ha="left", color=INK)
+    fig.tight_layout(rect=(0, 0, 1, 0.95))
+    return fig
