@@ -126,7 +126,6 @@ def _rating_rows(fig: Figures, circuit: Circuit, corners: slice = slice(1, None)
     the self-heating model as Ta = Tj - theta_ja * P.
     """
     rows = []
-    supply_max = float(np.max(fig.dc.v[:, circuit.supply]))
     for qi, q in enumerate(circuit.bjts):
         dev = q.device
         for field, attr, unit in (("ic_max", "ic", "A"), ("vce_max", "vce", "V"),
@@ -150,9 +149,6 @@ def _rating_rows(fig: Figures, circuit: Circuit, corners: slice = slice(1, None)
                 continue
             j = np.argmax(vals, axis=1)
             worst = vals[np.arange(vals.shape[0]), j]
-            if field == "vce_max":
-                # at cutoff the collector-emitter voltage reaches the supply: judge that
-                worst = np.maximum(worst, supply_max)
             rows.append(_at_most(f"{q.ref}.{field}", worst, rating, unit, "every corner",
                                  j + corners.start))
     return rows
@@ -252,6 +248,10 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
                 detail += f": {why}"
             elif row.name == "active":
                 detail = ""
+            if row.name.endswith(".vce_max"):
+                top = max(pt.condition.supply for pt in points)
+                detail += (f"; operating point judged (contract); at cutoff VCE approaches "
+                           f"the supply, up to {top:.3g} V: rate the part above that")
             if row.name.endswith(".p_max") and math.isfinite(float(row.margin[0])):
                 allowed = float(row.value[0]) / max(1.0 - float(row.margin[0]), 1e-300)
                 detail = f"allowance derated to {allowed * 1e3:.4g} mW there; " + detail
