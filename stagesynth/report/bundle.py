@@ -18,7 +18,7 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
     from ..spec import Spec
     from ..verdict import Verdict
 
-PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg", "impedance.png")
+PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg")
 BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
                 "stage.s2p", "histograms.svg")
 
@@ -33,7 +33,6 @@ def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
         "bode.svg": figure_svg(bode),
         "bode.png": figure_png(bode),
         "impedance.svg": figure_svg(imp),
-        "impedance.png": figure_png(imp),
     }
 
 

@@ -394,9 +394,10 @@ def histogram_figure(estimate, spec: Spec) -> Figure:
         ax.grid(True, color=GRID_MINOR, linewidth=0.5)
         ax.set_axisbelow(True)
         if lo is not None or hi is not None:
-            ax.legend(fontsize=7.5, frameon=False, loc="upper right")
+            ax.legend(fontsize=7.5, loc="best", frameon=True, facecolor="white",
+                      edgecolor="none", framealpha=0.92)
     fig.suptitle(
         f"Monte Carlo: {estimate.units} units, {100 * estimate.estimate:.2f} % meet every "
         f"requirement (seed {estimate.seed})", fontsize=10.5, x=0.02, ha="left", color=INK)
-    fig.tight_layout(rect=(0, 0, 1, 0.95))
+    fig.subplots_adjust(left=0.08, right=0.98, top=0.88, bottom=0.08, hspace=0.42, wspace=0.2)
     return fig
