@@ -92,8 +92,13 @@ def size_capacitors(
     env: Environment,
     series: str = "E6",
     tolerance: float = 0.1,
+    z_out_max: float | None = None,
 ) -> CapSizing:
-    """Capacitor values (from `series`) so that f_low holds with every capacitor at -tolerance."""
+    """Capacitor values (from `series`) so that f_low holds with every capacitor at -tolerance.
+
+    With `z_out_max`, the capacitors in the output path are also made large enough that
+    their reactance at midband keeps the output impedance within it.
+    """
     circuit = compile_design(design)
     conds = condition_arrays(circuit, corner_conditions(design, env)[:1])
     r, c = batch_values(design, circuit)
@@ -106,6 +111,8 @@ def size_capacitors(
     target = f_low * F_LOW_MARGIN
     cont = np.array([1.0 / (2 * math.pi * target * share[ref] * res[ref]) for ref in refs])
 
+    zcache: dict[bytes, np.ndarray] = {}
+
     def worst_f_low(cap_sets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         k = cap_sets.shape[0]
         rr = np.repeat(r, k, axis=0)
@@ -115,6 +122,7 @@ def size_capacitors(
                      load_resistance=design.load_resistance,
                      load_capacitance=design.load_capacitance, band=env.band,
                      corners="low")
+        zcache[cap_sets.tobytes()] = f.z_out[k:]  # output impedance with the low capacitors
         return f.f_low[:k], f.f_low[k:]
 
     # uniform scaling moves every low-frequency time constant together: refine twice
@@ -123,6 +131,9 @@ def size_capacitors(
         if not np.isfinite(worst[0]) or worst[0] <= 0:
             break
         cont = cont * (worst[0] / target)
+    z_limit = None if z_out_max is None else F_LOW_MARGIN * z_out_max
+    if z_limit is not None:
+        cont = _widen_for_z_out(cont, worst_f_low, zcache, z_limit)
     # exact search over the neighbouring standard values of every capacitor
     options = [sorted({nearest(v, series), *neighbours(v, series, 1)}) for v in cont]
     options = [[x for x in opt if 0.5 * v <= x <= 2.5 * v] or [nearest(v, series)]
@@ -130,6 +141,8 @@ def size_capacitors(
     combos = np.array(list(itertools.product(*options)))
     nominal, worst = worst_f_low(combos)
     ok = worst <= target
+    if z_limit is not None:
+        ok &= zcache[combos.tobytes()] <= z_out_max
     if np.any(ok):
         cost = np.sum(combos, axis=1)  # total capacitance: a fair proxy for size and cost
         pick = int(np.flatnonzero(ok)[np.argmin(cost[ok])])
@@ -148,6 +161,26 @@ def size_capacitors(
     )
     return CapSizing(sized, res, share, float(nominal[pick]), float(worst[pick]), target,
                      notes)
+
+
+def _widen_for_z_out(cont: np.ndarray, run, zcache, z_limit: float) -> np.ndarray:
+    """Enlarge the capacitors whose reactance adds to the output impedance until it fits.
+
+    Which capacitors matter is found by trying each ten times larger (one batch); those
+    that lower z_out noticeably are doubled together, a few times at most.
+    """
+    for _ in range(12):
+        run(cont[None, :])
+        z_now = float(zcache[cont[None, :].tobytes()][0])
+        if z_now <= z_limit:
+            break
+        trials = cont[None, :] * (1.0 + 9.0 * np.eye(cont.size))
+        run(trials)
+        gain = z_now - zcache[trials.tobytes()]
+        if not np.any(gain > 0):
+            break  # capacitors cannot help: the resistors set z_out
+        cont = np.where(gain >= 0.2 * np.max(gain), cont * 2.0, cont)
+    return cont
 
 
 def _shares(res: dict[str, float]) -> dict[str, float]:

@@ -267,7 +267,8 @@ def caps(
         "capacitor_series", "E6")
     tol = spec_obj.parts.capacitor_tolerance if spec_obj else 0.1
     before = run_analysis(d, environment=env)
-    sizing = size_capacitors(d, target, env=env, series=series, tolerance=tol)
+    sizing = size_capacitors(d, target, env=env, series=series, tolerance=tol,
+                             z_out_max=spec_obj.require.z_out if spec_obj else None)
     new = replace(sizing.design, band=(target, f_high))
     after = run_analysis(new, environment=env)
     new = replace(new, predicted={**dict(d.predicted), **predicted_block(after)})

@@ -285,8 +285,13 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
 def synthesize(
     spec: Spec, *, prefer: str = "margin", circuit: str | None = None
 ) -> SynthesisResult:
-    """Design a stage for `spec`: the simplest circuit family that meets every
-    requirement, with the best margin among those of that size; `circuit` forces one."""
+    """Design a stage for `spec`: the simplest circuit family that meets every requirement.
+
+    Families are tried in the registry's order of simplicity (single stages from the
+    plain common emitter on, then cascades); the first that meets every requirement is
+    kept, so the common case costs one search. When none meets, the closest (fewest
+    failed requirements, then the best margin) is returned. `circuit` forces one family.
+    """
     if circuit is not None:
         if circuit not in FAMILIES:
             raise StageError(f"{circuit!r} is not a circuit stagesynth knows",
@@ -297,29 +302,30 @@ def synthesize(
         return _with_choice(result, (report,), [note])
     reports: list[FamilyReport] = []
     results: list[tuple[FamilyReport, SynthesisResult]] = []
-    for stages in sorted({f.STAGES for f in FAMILIES.values()}):
-        for name, family in FAMILIES.items():
-            if stages != family.STAGES:
-                continue
-            blocked = family.precheck(spec)
-            if blocked:
-                reports.append(FamilyReport(name, family.TITLE, stages, False, -math.inf,
-                                            tuple(c.name for c in blocked),
-                                            "; ".join(c.best for c in blocked)))
-                continue
-            res = _synthesize_family(spec, family, prefer)
-            rep = _family_report(family, res)
-            reports.append(rep)
-            results.append((rep, res))
-        meeting = [(rep, res) for rep, res in results if rep.meets]
-        if meeting:
-            rep, res = max(meeting, key=lambda pair: pair[0].worst_margin)
+    impossible = _physics_conflicts(spec)  # limits no circuit on this supply escapes
+    for name, family in FAMILIES.items():
+        if impossible and results:
+            reports.append(FamilyReport(name, family.TITLE, family.STAGES, False, -math.inf,
+                                        tuple(c.name for c in impossible),
+                                        "; ".join(c.best for c in impossible)))
+            continue
+        blocked = family.precheck(spec)
+        if blocked:
+            reports.append(FamilyReport(name, family.TITLE, family.STAGES, False, -math.inf,
+                                        tuple(c.name for c in blocked),
+                                        "; ".join(c.best for c in blocked)))
+            continue
+        res = _synthesize_family(spec, family, prefer)
+        rep = _family_report(family, res)
+        reports.append(rep)
+        results.append((rep, res))
+        if rep.meets:
             return _with_choice(res, tuple(reports), _choice_notes(rep, reports))
-    if not results:  # every family blocked outright
+    if not results:  # every family blocked outright: show the first family's best try
         family = next(iter(FAMILIES.values()))
         res = _synthesize_family(spec, family, prefer)
         return _with_choice(res, tuple(reports), _choice_notes(None, reports))
-    rep, res = max(results, key=lambda pair: pair[0].worst_margin)
+    rep, res = min(results, key=lambda pair: (len(pair[0].failed), -pair[0].worst_margin))
     return _with_choice(res, tuple(reports), _choice_notes(None, reports))
 
 
@@ -343,16 +349,17 @@ def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport]) -> l
         else:
             lines.append(f"{r.title}: fails {', '.join(r.failed)}.")
     if chosen is None:
-        head = "Circuit choice: no family met every requirement; the closest is shown."
+        head = ("Circuit choice: no circuit family met every requirement; the closest "
+                "(fewest failed requirements, then the best margin) is shown.")
     else:
-        simpler = [r for r in reports if r.stages < chosen.stages]
+        simpler = [r for r in reports if r is not chosen]
         why = ""
         if simpler:
             drove = sorted({name for r in simpler for name in r.failed})
-            why = (f" No single-stage circuit could: the requirement(s) that drove the "
+            why = (f" Simpler circuits were tried first; the requirement(s) that drove the "
                    f"choice: {', '.join(drove)}.")
-        head = (f"Circuit choice: {chosen.title}, the simplest circuit that meets every "
-                f"requirement with the best margin.{why}")
+        head = (f"Circuit choice: {chosen.title}, the simplest circuit (in the order "
+                f"{', '.join(FAMILIES)}) that meets every requirement.{why}")
     return [head, *lines]
 
 
@@ -433,7 +440,8 @@ def _synthesize_family(spec: Spec, family, prefer: str) -> SynthesisResult:
                                                          strict=True)})
         sized = size_capacitors(finalize(family, spec, chosen), spec.require.f_low,
                                 env=search.env, series=spec.parts.capacitors,
-                                tolerance=spec.parts.capacitor_tolerance)
+                                tolerance=spec.parts.capacitor_tolerance,
+                                z_out_max=spec.require.z_out)
         return sized.design, sized
 
     design, sizing = finish(best)

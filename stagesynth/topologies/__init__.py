@@ -1,13 +1,15 @@
 """Circuit families: each module builds its netlist and gives the synthesizer a first cut.
 
-The registry is ordered from the simplest circuit to the most elaborate; the
-selector tries single stages before cascades. See base.py for what a family gives.
+The registry's order is the order of simplicity the selector follows: the plain
+common emitter first, then the other single stages from the most to the least
+general-purpose, then the two-stage cascades. See base.py for what a family gives.
 """
 
 from __future__ import annotations
 
-from . import common_emitter
+from . import ce_feedback, common_base, common_emitter, ef_bootstrap, emitter_follower
 
 FAMILIES = {
-    common_emitter.NAME: common_emitter,
+    family.NAME: family
+    for family in (common_emitter, ce_feedback, emitter_follower, ef_bootstrap, common_base)
 }
