@@ -41,7 +41,7 @@ class Environment:
             (float(amb[0]), float(amb[-1])),
             float(cond.get("supply_tolerance") or 0.0),
             design.band,
-        )
+        )  # the design reader has checked the types of "conditions"
 
 
 @dataclass(frozen=True)
@@ -157,7 +157,9 @@ def corner_conditions(design: Design, env: Environment) -> list[Condition]:
             n: design.devices[n].hfe_min if c == "min" else design.devices[n].hfe_max
             for n, c in zip(names, cases, strict=True)
         }
-        case = "/".join(cases) if len(set(cases)) > 1 else cases[0]
+        # with no transistor at all only the ambient and the supply vary
+        case = "/".join(sorted(set(cases), key=cases.index)) if cases else "none"
+        case = case if len(set(cases)) <= 1 else "/".join(cases)
         for amb in ambients:
             for vs in supplies:
                 label = f"hFE {case}, {amb:g} °C, {vs:.4g} V"

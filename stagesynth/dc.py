@@ -181,7 +181,8 @@ def _newton(
     Unknowns: the free node voltages and each transistor's Tj, with the thermal
     equation Tj = Ta + theta_ja*VCE*IC beside Kirchhoff's current law (dF/dTj by
     a forward difference, dP/dv analytic), so self-heating converges quadratically.
-    Junction limiting after SPICE's pnjlim scales the whole step.
+    Logarithmic junction-voltage limiting (the classic rule for exponential
+    devices) scales the whole step.
 
     Converged: the last full step moved no node by more than VNTOL + RELTOL*|v|
     (Newton's error after that step is far smaller still), KCL holds to ABSTOL
@@ -197,7 +198,7 @@ def _newton(
     v[:, model.c.ground] = 0.0
     if model.input_fixed:
         v[:, model.c.input] = 0.0
-    # critical junction voltage above which steps are limited (SPICE's vcrit)
+    # critical junction voltage VT*ln(VT/(sqrt(2)*IS)) above which steps are limited
     is_amb = np.array([[saturation_current(b.device, 25.0) for b in model.bjts]])
     vt25 = thermal_voltage(25.0)
     vcrit = vt25 * np.log(vt25 / (np.sqrt(2.0) * is_amb))

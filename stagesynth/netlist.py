@@ -296,6 +296,9 @@ def device_from_design_dict(data: Mapping[str, Any], name: str, file: str) -> De
                 positive=key not in _SIGNED_DEVICE_KEYS,
                 zero_ok=key in _ZERO_OK_DEVICE_KEYS,
             )
+    if "vbe" in values and not 0.1 <= values["vbe"] <= 1.5:
+        raise r.fail(f"{path}.vbe", f"{values['vbe']:g} V is not a junction voltage",
+                     "a magnitude from 0.1 to 1.5 V, e.g. 0.65")
     if "hfe_typ" in values and not hfe_min <= values["hfe_typ"] <= hfe_max:
         raise r.fail(f"{path}.hfe_typ", f"{values['hfe_typ']} lies outside hfe {spread}",
                      "a value between hfe min and max")
@@ -344,6 +347,14 @@ def design_from_dict(data: Any, file: str = "<design>") -> Design:
     if "band" in data and data["band"] is not None:
         b = r.mapping(data, "band")
         band = (r.number(b, "f_low", "band"), r.number(b, "f_high", "band"))
+        if band[0] >= band[1]:
+            raise r.fail("band", f"f_low {band[0]:g} Hz is not below f_high {band[1]:g} Hz",
+                         "f_low < f_high")
+    predicted = data.get("predicted") or {}
+    if not isinstance(predicted, Mapping):
+        raise r.fail("predicted", f"is a {type(predicted).__name__}, not an object",
+                     "an object of figures, or leave it out")
+    _check_conditions(data.get("conditions"), r)
 
     design = Design(
         parts=tuple(parts),
@@ -359,11 +370,33 @@ def design_from_dict(data: Any, file: str = "<design>") -> Design:
         title=str(data.get("title", "")),
         topology=str(data.get("topology", "")),
         band=band,
-        predicted=dict(data.get("predicted") or {}),
+        predicted=dict(predicted),
         extra={k: v for k, v in data.items() if k not in _KNOWN_TOP},
     )
     check_connectivity(design, file)
     return design
+
+
+def _check_conditions(cond: Any, r: _Reader) -> None:
+    """The optional "conditions" block: ambient [min, max] in degC, supply_tolerance."""
+    if cond is None:
+        return
+    if not isinstance(cond, Mapping):
+        raise r.fail("conditions", f"is a {type(cond).__name__}, not an object",
+                     '{"ambient": [min, max], "supply_tolerance": 0.05}')
+    amb = cond.get("ambient")
+    if amb is not None:
+        ok = (isinstance(amb, list | tuple) and 1 <= len(amb) <= 2
+              and all(isinstance(x, int | float) and not isinstance(x, bool)
+                      and math.isfinite(x) for x in amb))
+        if not ok or amb[0] > amb[-1]:
+            raise r.fail("conditions.ambient", f"{amb!r} is not [min, max] in °C",
+                         "a list of one or two numbers in °C, min first")
+    tol = cond.get("supply_tolerance")
+    if tol is not None and (isinstance(tol, bool) or not isinstance(tol, int | float)
+                            or not 0 <= tol < 1):
+        raise r.fail("conditions.supply_tolerance", f"{tol!r} is not a fraction",
+                     "a number from 0 to below 1, e.g. 0.05")
 
 
 def _part_from_dict(raw: Any, i: int, devices: Mapping[str, Device], r: _Reader) -> Part:
