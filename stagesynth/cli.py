@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import functools
 import json
+import math
 import sys
 from pathlib import Path
 from typing import Annotated
@@ -256,9 +257,10 @@ def caps(
 
         spec_obj = load_spec(spec)
     env = Environment.for_design(d, spec_obj)
-    f_high = env.band[1] if env.band else None
-    if f_high is None:
-        f_high = run_analysis(d).f_high
+    f_high = env.band[1] if env.band else run_analysis(d).f_high
+    if not math.isfinite(f_high):
+        # no upper corner (the gain never falls): judge well above the new low corner
+        f_high = 1e4 * target
     if target >= f_high:
         raise StageError(f"{target:g} Hz is not below the high corner {f_high:g} Hz",
                          key="--f-low", accepted="a frequency below f_high")

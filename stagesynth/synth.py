@@ -49,6 +49,7 @@ from .verdict import (
 )
 
 TIE = 0.03  # normalized margins this close to the best count as equal
+DROOP_DB = 0.1  # midband gain lost to the sized capacitors that calls for a second search
 YIELD_CANDIDATES = 6  # standard-value candidates judged by Monte Carlo when a yield is asked
 YIELD_SCREEN_UNITS = 1500  # units per candidate while choosing (common random numbers)
 YIELD_FINAL_UNITS = 10_000  # units for the figure written to the design file
@@ -383,14 +384,26 @@ def _with_choice(result: SynthesisResult, reports: tuple[FamilyReport, ...],
                            all_notes, result.stats, reports)
 
 
-def _synthesize_family(spec: Spec, family, prefer: str) -> SynthesisResult:
-    """The search of the module docstring for one circuit family."""
+def _synthesize_family(
+    spec: Spec, family, prefer: str, *, gain_scale: float = 1.0
+) -> SynthesisResult:
+    """The search of the module docstring for one circuit family.
+
+    The resistors are searched with the coupling and bypass capacitors out of the way;
+    when the sized capacitors then pull the midband gain down noticeably (a band only a
+    little wider than an octave or two), the search runs once more aiming the gain up by
+    exactly that droop (`gain_scale`), so the finished design lands on target.
+    """
+    from dataclasses import replace
+
     t0 = time.perf_counter()
-    search = _Search(spec, family)
+    aim = spec if gain_scale == 1.0 else replace(
+        spec, require=replace(spec.require, gain=spec.require.gain * gain_scale))
+    search = _Search(aim, family)
     physics = [*_physics_conflicts(spec), *family.precheck(spec)]
 
     # 2-4: first cut, exact gain split, exact judgement at every corner
-    cut = family.first_cut(spec)
+    cut = family.first_cut(aim)
     values = dict(cut.values)
     if family.GAIN_SPLIT is not None and cut.knob is not None:
         a, b = family.GAIN_SPLIT
@@ -399,14 +412,14 @@ def _synthesize_family(spec: Spec, family, prefer: str) -> SynthesisResult:
         values[b] = total - values[a]
     r = search.r_matrix(values)
     fig = search.evaluate(r)
-    rows = assess(fig, spec, search.circuit)
+    rows = assess(fig, aim, search.circuit)
     order = _rank(rows, fig.supply_current[:, 0], prefer)
     t_search = time.perf_counter()
 
     # 5: standard values for the best few continuous candidates
     series = spec.parts.resistors
     wide = len(search.r_refs) <= 6  # three values a part while the product stays small
-    top = order[: min(4 if wide else 2, order.size)]
+    top = order[: min(4 if wide else (1 if len(search.r_refs) > 8 else 2), order.size)]
     snapped = []
     for i in top:
         options = []
@@ -429,7 +442,7 @@ def _synthesize_family(spec: Spec, family, prefer: str) -> SynthesisResult:
         snapped.extend(itertools.product(*options))
     rs = np.array(snapped)
     fig_s = search.evaluate(rs)
-    rows_s = assess(fig_s, spec, search.circuit)
+    rows_s = assess(fig_s, aim, search.circuit)
     order_s = _rank(rows_s, fig_s.supply_current[:, 0], prefer)
     best = int(order_s[0])
     t_snap = time.perf_counter()
@@ -445,6 +458,10 @@ def _synthesize_family(spec: Spec, family, prefer: str) -> SynthesisResult:
         return sized.design, sized
 
     design, sizing = finish(best)
+    if gain_scale == 1.0:
+        droop = _low_frequency_droop(design, spec, search)
+        if abs(20.0 * math.log10(droop)) > DROOP_DB:
+            return _synthesize_family(spec, family, prefer, gain_scale=1.0 / droop)
     t_caps = time.perf_counter()
     yield_notes: list[str] = []
     estimate = None
@@ -519,6 +536,14 @@ def _synthesize_family(spec: Spec, family, prefer: str) -> SynthesisResult:
     }
     return SynthesisResult(spec, design, analysis, verdict, tuple(conflicts), tuple(notes),
                            stats)
+
+
+def _low_frequency_droop(design: Design, spec: Spec, search: _Search) -> float:
+    """|gain at midband| with the sized capacitors over that with them out of the way."""
+    big = {p.ref: float(search.c_big[0]) for p in design.parts if p.kind == "capacitor"}
+    real = abs(analyze(design, spec).gain)
+    wide = abs(analyze(design.with_values(big), spec).gain)
+    return real / wide if wide > 0 else 1.0
 
 
 def _ok_without_f_low(rows: list[Row], i: int) -> bool:

@@ -2,14 +2,33 @@
 
 The registry's order is the order of simplicity the selector follows: the plain
 common emitter first, then the other single stages from the most to the least
-general-purpose, then the two-stage cascades. See base.py for what a family gives.
+general-purpose, then the two-stage cascades (the six-resistor ones before the
+ten-resistor CE->CE). See base.py for what a family gives.
 """
 
 from __future__ import annotations
 
-from . import ce_feedback, common_base, common_emitter, ef_bootstrap, emitter_follower
+from . import (
+    ce_ce,
+    ce_ef,
+    ce_feedback,
+    common_base,
+    common_emitter,
+    ef_bootstrap,
+    ef_ce,
+    emitter_follower,
+)
 
 FAMILIES = {
     family.NAME: family
-    for family in (common_emitter, ce_feedback, emitter_follower, ef_bootstrap, common_base)
+    for family in (
+        common_emitter,
+        ce_feedback,
+        emitter_follower,
+        ef_bootstrap,
+        common_base,
+        ce_ef,
+        ef_ce,
+        ce_ce,
+    )
 }
