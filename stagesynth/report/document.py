@@ -352,7 +352,7 @@ def _robustness_section(rob, spec: Spec | None) -> Section:
         blocks.append("Sensitivity: each source's share of a figure's variance (uniform over "
                       "its tolerance), and the linear worst case with every source at the "
                       "end of its range that hurts (judged at the worse ambient).")
-        blocks.append(Table(("figure", "nominal", "worst case", "limit", "worst case ok",
+        blocks.append(Table(("figure", "at worse ambient", "worst case", "limit", "worst case ok",
                              "largest contributors"), tuple(rows), numeric=(1, 2), status=4))
         if rob.advice:
             blocks.append(["Tighter tolerance: " + a for a in rob.advice])
