@@ -50,6 +50,7 @@ from .verdict import (
 
 TIE = 0.03  # normalized margins this close to the best count as equal
 DROOP_DB = 0.1  # midband gain lost to the sized capacitors that calls for a second search
+SCREEN_KEEP = 240  # candidates judged at every corner after the nominal screen
 YIELD_CANDIDATES = 6  # standard-value candidates judged by Monte Carlo when a yield is asked
 YIELD_SCREEN_UNITS = 1500  # units per candidate while choosing (common random numbers)
 YIELD_FINAL_UNITS = 10_000  # units for the figure written to the design file
@@ -122,6 +123,30 @@ class _Search:
                         load_capacitance=d.load_capacitance,
                         band=(self.spec.require.f_low, self.spec.require.f_high),
                         corners="high")
+
+    def screen(self, r: np.ndarray, spec: Spec) -> np.ndarray:
+        """Indices of the candidates worth judging at every corner.
+
+        One cheap pass at the nominal condition alone; the SCREEN_KEEP candidates with the
+        best smallest margin there go on (a candidate that fails clearly at nominal
+        cannot do better at the corners), so the corner solve stays a fixed size.
+        """
+        k = r.shape[0]
+        if k <= SCREEN_KEEP:
+            return np.arange(k)
+        c = self.conditions
+        nominal = Conditions(c.hfe25[:1], c.ambient[:1], c.supply[:1])
+        d = self.template
+        fig = evaluate(self.circuit, r, np.tile(self.c_big, (k, 1)), nominal,
+                       source_resistance=d.source_resistance,
+                       load_resistance=d.load_resistance,
+                       load_capacitance=d.load_capacitance,
+                       band=(spec.require.f_low, spec.require.f_high), corners="high")
+        self.evaluated += k
+        rows = assess(fig, spec, self.circuit, first_corner=0)
+        score = smallest_margin(rows, _LF_SKIP)
+        score = np.where(np.isfinite(score), score, -1e9)
+        return np.sort(np.argsort(-score, kind="stable")[:SCREEN_KEEP])
 
     def tune_gain(self, r: np.ndarray, re1: np.ndarray) -> np.ndarray:
         """Move resistance between RE1 and RE2 (sum fixed, DC point unchanged) so the
@@ -411,6 +436,7 @@ def _synthesize_family(
         values[a] = search.tune_gain(search.r_matrix(values), cut.knob)
         values[b] = total - values[a]
     r = search.r_matrix(values)
+    r = r[search.screen(r, aim)]
     fig = search.evaluate(r)
     rows = assess(fig, aim, search.circuit)
     order = _rank(rows, fig.supply_current[:, 0], prefer)

@@ -48,7 +48,7 @@ _STYLE = {
     "legend.edgecolor": "#bbbbbb",
     "hatch.linewidth": 0.6,
     "svg.hashsalt": "stagesynth",  # stable element ids: the same design gives the same file
-    "svg.fonttype": "path",  # text as outlines: looks the same in every viewer
+    "svg.fonttype": "none",  # text as text: several times faster to write, searchable
 }
 
 _POINTS_PER_DECADE = 80
