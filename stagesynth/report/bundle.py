@@ -61,7 +61,7 @@ def write_bundle(
     out.check(list(BUNDLE_FILES))
     contents: dict[str, bytes] = _plots(analysis, spec)
     svgs = {
-        "schematic": schematic_svg(design),
+        "schematic": schematic_svg(design, analysis),
         "bode": contents["bode.svg"].decode("utf-8"),
         "impedance": contents["impedance.svg"].decode("utf-8"),
     }

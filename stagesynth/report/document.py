@@ -589,7 +589,7 @@ def figure_svgs(design: Design, analysis: Analysis, spec: Spec | None = None) ->
     from .plots import bode_figure, figure_svg, impedance_figure
 
     return {
-        "schematic": schematic_svg(design),
+        "schematic": schematic_svg(design, analysis),
         "bode": figure_svg(bode_figure(analysis, spec)).decode("utf-8"),
         "impedance": figure_svg(impedance_figure(analysis, spec)).decode("utf-8"),
     }
@@ -613,8 +613,22 @@ def report_html(
 # ---------------------------------------------------------------------------
 # Schematic (drawn by stagesynth.report.schematic)
 # ---------------------------------------------------------------------------
-def schematic_svg(design: Design) -> str:
-    """The schematic as SVG text, from the schematic module (imported here: it is heavy)."""
+def schematic_svg(design: Design, analysis: Analysis | None = None) -> str:
+    """The schematic as SVG text, from the schematic module (imported here: it is heavy).
+
+    With the analysis, each capacitor the parts list marks as an electrolytic is drawn
+    polarized, + on the node the parts list names, so drawing and list cannot disagree.
+    """
     from .schematic import draw_schematic
 
-    return draw_schematic(design)
+    positive: dict[str, str] = {}
+    if analysis is not None:
+        from .bom import bom_rows
+
+        marker = "electrolytic suits, + to "
+        for row in bom_rows(design, analysis):
+            if row["kind"] == "capacitor" and row["type"].startswith(marker):
+                node = row["type"][len(marker):]
+                if node in design.part(row["ref"]).nodes:
+                    positive[row["ref"]] = node
+    return draw_schematic(design, positive=positive or None)

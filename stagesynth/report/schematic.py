@@ -1,19 +1,26 @@
 """Schematic of a designed stage as SVG text, drawn with schemdraw from the design's netlist.
 
 Three layouts, tried in turn:
-- chain: stages fed one from the next (common emitter with divider or collector-feedback bias
-  and a split, bypassed emitter resistor; emitter follower; NPN or PNP mirror; cascades),
-  recognized from the netlist's structure, drawn the way an engineer would: supply rail on
-  top, ground at the bottom, signal from left to right, every connection a wire;
+- chain: stages fed one from the next, recognized from the netlist's structure and drawn the
+  way an engineer would: supply rail on top, ground at the bottom, signal from left to right,
+  every connection a wire. A stage is fed at its base (common emitter with divider bias, a
+  collector-to-base resistor or a split, decoupled one, and a split, bypassed emitter
+  resistor; emitter follower, also with a bootstrapped base resistor) or at its emitter
+  (common base: the base row sits beside the signal row with its bias and decoupling parts);
+  NPN or the PNP mirror; cascades;
 - net: any netlist; transistors left to right in signal order with the parts that run from
   their nodes to the rails wired in, the remaining parts drawn apart with each end named by
   its node (the same name is the same node);
 - plain: the last resort, every part drawn on its own with named ends.
+A layout's drawing is only used when it is faithful (`_faults`): no two nodes' conductors
+joined, no node split into unnamed pieces, no crossing, and no terminal or name so close to
+another node's conductor that a reader would take it as wired there.
 """
 
 from __future__ import annotations
 
 import contextlib
+import copy
 import itertools
 import math
 import re
@@ -40,6 +47,9 @@ PT_PER_UNIT = 36.0  # schemdraw's default scale: 0.5 inch per unit, 72 points pe
 GREY = "#606060"  # source and load: outside the designed circuit
 NODE_GREY = "#7a7a7a"
 NET_BLUE = "#1f4e99"  # node names that stand for a wire
+_EMF = "(source emf)"  # the node between the source's EMF and Rs: not in the netlist
+SIDE = 4.6  # signal row to a row beside it: a part plus a local ground or supply symbol
+NEAR = 1.2  # an open end this close to another node's conductor reads as joined to it
 
 # Geometry of schemdraw's Bjt symbol drawn at 1.5 times its size (to match the resistors):
 # collector and emitter offsets from the base terminal, and the body's extent.
@@ -73,18 +83,7 @@ def draw_schematic(
         merged.update({ref: {"polarized": True, "positive": node}
                        for ref, node in positive.items()})
         design = replace(design, extra={**design.extra, "capacitors": merged})
-    texts = dict(values or {})
-    sheet = None
-    for builder in (_ChainBuilder, _NetBuilder):
-        # a layout that cannot place this netlist must not stop the report: the plain
-        # layout at the end draws any netlist
-        try:
-            sheet = builder(design, texts, node_names).build()
-            break
-        except Exception:
-            continue
-    if sheet is None:
-        sheet = _generic_sheet(design, texts)
+    sheet = _layout(design, dict(values or {}), node_names)
     return _render(sheet, design.title or design.topology or "stage schematic")
 
 
@@ -95,6 +94,21 @@ def save_schematic(
     path = Path(path)
     path.write_text(draw_schematic(design, values), encoding="utf-8")
     return path
+
+
+def _layout(design: Design, texts: Mapping[str, str], node_names: bool = True) -> _Sheet:
+    """The first layout that places the netlist and draws it faithfully (see `_faults`)."""
+    for builder in (_ChainBuilder, _NetBuilder):
+        # a layout that cannot place this netlist, or would draw a connection the netlist
+        # does not have, must not stop the report: the plain layout at the end draws any
+        # netlist, every part on its own with its ends named
+        try:
+            sheet = builder(design, texts, node_names).build()
+        except Exception:
+            continue
+        if not _faults(sheet, design):
+            return sheet
+    return _generic_sheet(design, texts)
 
 
 # ---------------------------------------------------------------------------
@@ -185,6 +199,7 @@ class _Two:
     external: bool = False
     polarized: bool = False
     sides: tuple[str, ...] = ()  # preferred label sides, first that is free wins
+    nodes: tuple[str, str] = ("", "")  # netlist nodes at a and at b (checked by _faults)
 
 
 @dataclass(frozen=True)
@@ -193,6 +208,7 @@ class _Bjt:
     pnp: bool
     base: Point
     text: str
+    nodes: tuple[str, ...] = ("", "", "")  # collector, base, emitter
 
 
 @dataclass
@@ -209,6 +225,7 @@ class _Sheet:
     notes: list[tuple[Point, str, str, str, float, str]] = field(default_factory=list)
     node_tags: list[tuple[Point, str, bool]] = field(default_factory=list)  # name, must show
     marks: list[Point] = field(default_factory=list)  # lead ends joined to a node by its name
+    names: list[tuple[Point, str]] = field(default_factory=list)  # each mark and its node
     frames: list[tuple[Box, str]] = field(default_factory=list)  # dashed box and caption
 
 
@@ -223,12 +240,18 @@ class _NotAChain(Exception):
 class _Stage:
     q: Part
     tap: str  # node the stage's input comes from (the input, or c/e of the stage before)
-    link: Part | None  # part from tap to the base (None: the base is the tap node)
+    link: Part | None  # part from tap to the entry node (None: the entry is the tap node)
     out_tap: str  # c or e node that feeds the next stage or the output
+    entry: str = "b"  # where the signal enters: "b" (common emitter, follower), "e" (common base)
 
 
 def _find_chain(design: Design) -> tuple[list[_Stage], Part | None]:
-    """Stages from input to output, and the part from the last tap to the output terminal."""
+    """Stages from input to output, and the part from the last tap to the output terminal.
+
+    A stage's signal enters at the base (common emitter, follower) or, where no base is fed
+    from the chain, at the emitter (common base: the base then only has its bias network);
+    the entry is the tap node itself or one part away from it.
+    """
     rails = {design.supply_node, design.ground}
     passives = [p for p in design.parts if not p.is_bjt]
     pending = sorted(design.bjts, key=lambda q: _natural_key(q.ref))
@@ -236,35 +259,45 @@ def _find_chain(design: Design) -> tuple[list[_Stage], Part | None]:
         raise _NotAChain("no transistor")
     taps = [design.input]
     used: set[str] = set()
-    raw: list[tuple[Part, str, Part | None]] = []
+    raw: list[tuple[Part, str, Part | None, str]] = []
+
+    def fed(tap: str, q: Part, entry: str) -> tuple[Part, str, Part | None, str] | None:
+        """q's stage when its base ("b") or emitter ("e") is fed from tap, else None."""
+        node = q.nodes[1] if entry == "b" else q.nodes[2]
+        if entry == "e" and q.nodes[1] in rails | {design.input, design.output}:
+            return None
+        if node in rails or node == design.output or len(set(q.nodes)) < 3:
+            return None
+        if node == tap:
+            return (q, tap, None, entry)
+        links = [p for p in passives if set(p.nodes) == {tap, node} and p.ref not in used]
+        if len(links) == 1 and node != design.input:
+            return (q, tap, links[0], entry)
+        return None
+
     while pending:
         found = None
-        for tap in taps:
-            for q in pending:
-                b = q.nodes[1]
-                if b in rails or b == design.output or len(set(q.nodes)) < 3:
-                    continue
-                if b == tap:
-                    found = (q, tap, None)
-                else:
-                    links = [p for p in passives if set(p.nodes) == {tap, b} and p.ref not in used]
-                    if len(links) == 1 and b != design.input:
-                        found = (q, tap, links[0])
+        for entry in ("b", "e"):  # a base fed from the chain first: the common case
+            for tap in taps:
+                for q in pending:
+                    found = fed(tap, q, entry)
+                    if found:
+                        break
                 if found:
                     break
             if found:
                 break
         if found is None:
-            raise _NotAChain("a transistor's base is not fed from the chain")
-        q, tap, link = found
+            raise _NotAChain("no transistor is fed from the chain")
+        q, tap, link, entry = found
         if link is not None:
             used.add(link.ref)
         raw.append(found)
         pending.remove(q)
-        taps = [n for n in (q.nodes[0], q.nodes[2]) if n not in rails]
+        taps = [n for n in _outputs(q, entry) if n not in rails]
     # the output: at c or e of the last stage, directly or through one part
-    last = raw[-1][0]
-    ends = [n for n in (last.nodes[0], last.nodes[2]) if n not in rails]
+    last, _, _, last_entry = raw[-1]
+    ends = [n for n in _outputs(last, last_entry) if n not in rails]
     out_link = None
     if design.output in ends:
         out_tap = design.output
@@ -277,15 +310,15 @@ def _find_chain(design: Design) -> tuple[list[_Stage], Part | None]:
             raise _NotAChain("the output is not fed from the last stage")
         out_link, out_tap = cands[0]
     stages = []
-    for i, (q, tap, link) in enumerate(raw):
+    for i, (q, tap, link, entry) in enumerate(raw):
         if i + 1 < len(raw):
             nxt = raw[i + 1][1]
-            if nxt not in (q.nodes[0], q.nodes[2]):
+            if nxt not in _outputs(q, entry):
                 raise _NotAChain("stages are not in a chain")
-            stages.append(_Stage(q, tap, link, nxt))
+            stages.append(_Stage(q, tap, link, nxt, entry))
         else:
-            stages.append(_Stage(q, tap, link, out_tap))
-    # each stage's own nodes belong to it alone (apart from the tap that feeds the next base)
+            stages.append(_Stage(q, tap, link, out_tap, entry))
+    # each stage's own nodes belong to it alone (apart from the tap that feeds the next stage)
     owner: dict[str, int] = {}
     for i, st in enumerate(stages):
         for n in st.q.nodes:
@@ -295,6 +328,12 @@ def _find_chain(design: Design) -> tuple[list[_Stage], Part | None]:
                 raise _NotAChain("node shared between stages")
             owner.setdefault(n, i)
     return stages, out_link
+
+
+def _outputs(q: Part, entry: str) -> tuple[str, ...]:
+    """Nodes of q that can feed what follows: collector and emitter, or the collector alone
+    when the signal enters at the emitter."""
+    return (q.nodes[0], q.nodes[2]) if entry == "b" else (q.nodes[0],)
 
 
 class _Space:
@@ -407,7 +446,18 @@ class _Builder:
         self.passives = [p for p in design.parts if not p.is_bjt]
         self.strict = True  # a part that finds no room fails the layout (else: drawn apart)
         self.deferred: set[str] = set()
+        self.reserved: set[str] = set()  # parts a stage draws itself, not hung from a node
         self.lane_start: dict[str, float] = {}
+
+    _STATE = ("sheet", "space", "home", "bus_end", "used", "deferred", "reserved", "lane_start")
+
+    def save(self) -> dict[str, object]:
+        """The layout so far, to go back to when a stage finds no room."""
+        return copy.deepcopy({name: getattr(self, name) for name in self._STATE})
+
+    def restore(self, saved: Mapping[str, object]) -> None:
+        for name, value in saved.items():
+            setattr(self, name, value)
 
     # -- helpers -----------------------------------------------------------
     def rail_dir(self, node: str) -> int:
@@ -448,11 +498,12 @@ class _Builder:
     def two(self, part: Part, a_node: str, a: Point, b: Point, sides: tuple[str, ...]) -> None:
         """Record part with its a_node end at a; an electrolytic keeps + on its positive node."""
         positive = _polarity_of(self.d, part) if part.kind == "capacitor" else None
+        nodes = (a_node, _other(part, a_node))
         if positive is not None and positive != a_node:
-            a, b = b, a
+            a, b, nodes = b, a, (nodes[1], nodes[0])
         self.sheet.twos.append(
             _Two(part.ref, part.kind, a, b, _part_text(part, self.d, self.texts),
-                 polarized=positive is not None, sides=sides)
+                 polarized=positive is not None, sides=sides, nodes=nodes)
         )
         self.used.add(part.ref)
 
@@ -469,7 +520,7 @@ class _Builder:
         while True:
             parts = [
                 p for p in self.unused_at(node)
-                if p.ref not in self.deferred
+                if p.ref not in self.deferred and p.ref not in self.reserved
                 and (_other(p, node) in self.rails or self.private(_other(p, node)))
             ]
             if not parts:
@@ -482,6 +533,20 @@ class _Builder:
                 self.hang_to_rail(node, part, other, natural)
             else:
                 self.hang_chain(node, part, other, natural)
+
+    def lane_count(self, node: str, parent: int = 0) -> int:
+        """Lanes the parts hanging from `node` will take: up and down share a lane; `parent`
+        (+1 up, -1 down) is the side a part already takes at the node's home."""
+        up = down = 0
+        for p in self.unused_at(node):
+            other = _other(p, node)
+            if p.ref in self.reserved or not (other in self.rails or self.private(other)):
+                continue
+            going = self.rail_dir(other) if other in self.rails else self.child_dir(other)
+            up, down = (up + 1, down) if going > 0 else (up, down + 1)
+        if parent:
+            up, down = (up + 1, down) if parent > 0 else (up, down + 1)
+        return max(up, down, 1)
 
     def lanes(self, node: str) -> Iterable[float]:
         x0 = self.lane_start.get(node, self.home[node][0])
@@ -549,13 +614,15 @@ class _Builder:
         d = self.d
         rs = d.source_resistance
         xs = -(L + 1.0) if rs > 0 else -1.75
-        src = _Two("vs", "source", (xs, DOWN), (xs, 0.0), "vs", external=True, sides=("left",))
+        src = _Two("vs", "source", (xs, DOWN), (xs, 0.0), "vs", external=True, sides=("left",),
+                   nodes=(d.ground, _EMF if rs > 0 else d.input))
         self.sheet.twos.append(src)
         self.space.add_v(xs, DOWN, 0.0, d.ground, d.input)
         if rs > 0:
             text = f"Rs\n{self.texts.get('Rs', _fmt(rs, 'Ω'))}"
             self.sheet.twos.append(_Two("Rs", "resistor", (xs, 0.0), (xs + L, 0.0), text,
-                                        external=True, sides=("above",)))
+                                        external=True, sides=("above",),
+                                        nodes=(_EMF, d.input)))
             self.sheet.wires.append(((xs + L, 0.0), (0.0, 0.0), True))
         else:
             self.sheet.wires.append(((xs, 0.0), (0.0, 0.0), True))
@@ -566,18 +633,21 @@ class _Builder:
         self.place_node(d.input, (0.0, 0.0), required, terminal="in")
 
     def place_bjt(self, q: Part, x_base: float, ty: float, last: str | None,
-                  shared_ok: bool) -> dict[str, int]:
+                  shared_ok: bool, home_y: Mapping[str, float] | None = None,
+                  join: Iterable[str] = ()) -> dict[str, int]:
         """Transistor with its base at (x_base, ty); collector and emitter nodes get homes.
 
         `last`: the node to home last (kept free to the right). `shared_ok`: a terminal on a
         node placed elsewhere gets a stub with the node's name instead of failing.
+        `home_y`: a height for a node's home other than just beyond its terminal; `join`:
+        placed nodes whose bus is run on to the terminal's lead.
         Returns the hanging direction of each newly homed node.
         """
         c, _, e = q.nodes
         pnp = _is_pnp(q, self.d)
         s = -1 if pnp else 1  # +1: collector up (NPN), -1: emitter up (PNP)
         text = _part_text(q, self.d, self.texts)
-        self.sheet.bjts.append(_Bjt(q.ref, pnp, (x_base, ty), text))
+        self.sheet.bjts.append(_Bjt(q.ref, pnp, (x_base, ty), text, q.nodes))
         bx0, by0, bx1, by1 = _BJT_BOX
         self.space.boxes.append((x_base + bx0, ty + by0, x_base + bx1, ty + by1))
         w, h = _text_box(text, FONT)
@@ -587,6 +657,14 @@ class _Builder:
         ends.sort(key=lambda item: item[0] == last)  # the node to keep free goes last
         homed: dict[str, int] = {}
         for node, (x, y, direction) in ends:
+            if node in join:
+                hy = self.home[node][1]
+                if not (self.space.h_ok(hy, self.bus_end[node], x, node)
+                        and self.space.v_ok(x, y, hy, node)):
+                    raise _NotAChain(f"no room to join {node}")
+                self.extend_bus(node, x)
+                self.wire((x, y), (x, hy), node)
+                continue
             if node in self.rails and self.rail_dir(node) == direction:
                 self.wire((x, y), (x, UP if direction > 0 else DOWN), node)
             elif node in self.home or node in self.rails:
@@ -596,7 +674,9 @@ class _Builder:
                 self.wire((x, y), stub, node)
                 self.net_end(stub, node, "up" if direction > 0 else "down")
             else:
-                home = (x, y + direction * 0.95)
+                home = (x, (home_y or {}).get(node, y + direction * 0.95))
+                if node in (home_y or {}) and not self.space.v_ok(x, y, home[1], node):
+                    raise _NotAChain(f"no room for the lead to {node}")
                 self.wire((x, y), home, node)
                 self.place_node(node, home, required=shared_ok)
                 homed[node] = direction
@@ -618,14 +698,16 @@ class _Builder:
         self.sheet.wires.append(((start, ty), (x_load, ty), True))
         load_text = f"RL\n{self.texts.get('RL', _fmt(d.load_resistance, 'Ω'))}"
         self.sheet.twos.append(_Two("RL", "resistor", (x_load, ty), (x_load, DOWN), load_text,
-                                    external=True, sides=("right", "left")))
+                                    external=True, sides=("right", "left"),
+                                    nodes=(d.output, d.ground)))
         x_right = x_load
         if d.load_capacitance > 0:
             x_right = x_load + LANE
             self.sheet.wires.append(((x_load, ty), (x_right, ty), True))
             cl_text = f"CL\n{self.texts.get('CL', _fmt(d.load_capacitance, 'F'))}"
             self.sheet.twos.append(_Two("CL", "capacitor", (x_right, ty), (x_right, DOWN),
-                                        cl_text, external=True, sides=("right",)))
+                                        cl_text, external=True, sides=("right",),
+                                        nodes=(d.output, d.ground)))
         self.sheet.frames.append(((x_load - 0.7, DOWN, x_right + 1.9, ty + 1.5), "load"))
 
     def check_all_drawn(self) -> None:
@@ -662,39 +744,161 @@ class _ChainBuilder(_Builder):
         return start + L
 
     def stage(self, st: _Stage) -> None:
-        c, b, _ = st.q.nodes
+        """One stage; where its parts find no room, again with more width before the base."""
+        draw = self.stage_emitter if st.entry == "e" else self.stage_base
+        for extra in (0.0, LANE, 2 * LANE, 4 * LANE):
+            saved = self.save()
+            try:
+                draw(st, extra)
+                return
+            except _NotAChain:
+                self.restore(saved)
+        raise _NotAChain(f"no room for the stage of {st.q.ref}")
+
+    def through(self, a: str, z: str) -> tuple[Part, str, Part] | None:
+        """Two unused parts in series from a to z through a node only passives touch (a split
+        feedback resistor, a bootstrapped base resistor); None when there is none."""
+        if z in self.rails:
+            return None
+        found = []
+        for p in self.unused_at(a):
+            m = _other(p, a)
+            if m == a or not self.private(m):
+                continue
+            found += [(p, m, p2) for p2 in self.unused_at(m) if p2 is not p
+                      and set(p2.nodes) == {m, z}]
+        if len(found) > 1:
+            raise _NotAChain(f"more than one path from {a} to {z}")
+        return found[0] if found else None
+
+    def stage_base(self, st: _Stage, extra: float) -> None:
+        """A stage fed at the base: bias network hanging from the base row, and where present
+        a collector-to-base resistor over the transistor, a split one with its decoupled
+        midpoint on a row beside the collector side, or a bootstrapped base resistor whose
+        far end sits on a row beside the emitter side, joined to the emitter."""
+        c, b, e = st.q.nodes
+        s = -1 if _is_pnp(st.q, self.d) else 1  # +1: collector up (NPN)
         ty = self.home[st.tap][1]
-        feedback = [p for p in self.unused_at(b) if c not in self.rails and set(p.nodes) == {b, c}]
-        x_fb = None
+        single = [p for p in self.unused_at(b) if c not in self.rails and set(p.nodes) == {b, c}]
+        split = self.through(b, c)
+        boot = self.through(b, e)
+        if len(single) > 1 or (single and split) or ((single or split) and boot):
+            raise _NotAChain("base network not of a known shape")
+        for part in [*single, *(t[0] for t in (split, boot) if t)]:
+            self.reserved.add(part.ref)
         if st.link is not None:
             end = self.link(st.link, st.tap, b)
             self.place_node(b, (end, ty))
             self.hang(b, 0)
-            x_base = self.bus_end[b] + 1.6
-            if len(feedback) == 1:  # collector-to-base resistor: over (NPN) the transistor
-                x_fb = self.bus_end[b] + 1.0
-                x_base = x_fb + 2.4
-            self.extend_bus(b, x_base)
+            start = self.bus_end[b]
         else:  # direct coupling: the base sits on the tap node
             self.space.corridors.pop(st.tap, None)
-            x_base = max(self.bus_end[st.tap] + 1.6, self.space.right_edge())
-            if not self.space.h_ok(ty, self.bus_end[st.tap], x_base, b):
-                raise _NotAChain("no room for a direct coupling")
-            self.extend_bus(b, x_base)
-        homed = self.place_bjt(st.q, x_base, ty, st.out_tap, shared_ok=False)
-        if x_fb is not None and c in homed:
-            part = feedback[0]
-            xc, yc = self.home[c]
-            if not (self.space.v_ok(x_fb, ty, yc, b) and self.space.h_ok(yc, x_fb, xc, b, c)):
-                raise _NotAChain(f"no room for {part.ref}")
-            self.wire((x_fb, ty), (x_fb, yc), b)
-            self.space.add_h(yc, x_fb, xc, b, c)
-            self.two(part, b, (x_fb, yc), (xc, yc), ("above",) if yc > ty else ("below",))
+            start = max(self.bus_end[st.tap], self.space.right_edge() - 1.6)
+        # where a special network leaves the base row, and where the base goes
+        x_turn = self.bus_end[b] + (LANE if start > self.home[b][0] + EPS else 0.0)
+        x_base = start + 1.6
+        home_y: dict[str, float] = {}
+        if single:
+            x_turn = start + 1.0
+            x_base = x_turn + 2.4
+        elif split:
+            m = split[1]
+            width = (self.lane_count(m) - 1) * LANE
+            x_base = max(x_base, x_turn + 2 * L + width + 0.6 - _BJT_DX)
+            home_y[c] = ty + s * SIDE
+        elif boot:
+            x = boot[1]
+            width = (self.lane_count(x, s) - 1) * LANE
+            x_base = max(x_base, x_turn + width + L + 0.6 - _BJT_DX)
+            home_y[e] = ty - s * SIDE
+        x_base += extra
+        if not self.space.h_ok(ty, self.bus_end[b], x_base, b):
+            raise _NotAChain("no room for the base row")
+        self.extend_bus(b, x_base)
+        homed = self.place_bjt(st.q, x_base, ty, st.out_tap, shared_ok=False, home_y=home_y)
+        if single and c in homed:  # collector-to-base resistor over (NPN) the transistor
+            self.across(single[0], b, (x_turn, ty), c, self.home[c])
+        elif split and c in homed:
+            p_b, m, p_c = split
+            y_f = self.home[c][1]
+            self.turn(b, (x_turn, ty), y_f)
+            x_m = x_turn + L
+            self.row_part(p_b, b, (x_turn, y_f), m, x_m)
+            self.place_node(m, (x_m, y_f))
+            self.hang(m, -s)
+            self.across(p_c, m, (self.bus_end[m], y_f), c, self.home[c])
+        elif boot and e in homed:
+            p_b, x, p_e = boot
+            y_x = self.home[e][1]
+            if not self.space.v_ok(x_turn, ty, y_x, b, x):
+                raise _NotAChain(f"no room for {p_b.ref}")
+            self.space.add_v(x_turn, ty, y_x, b, x)
+            self.two(p_b, b, (x_turn, ty), (x_turn, y_x), ("right", "left"))
+            self.place_node(x, (x_turn, y_x))
+            self.hang(x, -s)
+            self.across(p_e, x, (self.bus_end[x], y_x), e, self.home[e])
+        elif single or split or boot:
+            raise _NotAChain("base network not placed")
         if st.out_tap in homed:  # the node feeding the next stage keeps a free corridor
-            x, y = self.home[st.out_tap]
-            self.space.corridors[st.out_tap] = (y, x)
+            xo, yo = self.home[st.out_tap]
+            self.space.corridors[st.out_tap] = (yo, xo)
         for node, direction in homed.items():
             self.hang(node, direction)
+
+    def stage_emitter(self, st: _Stage, extra: float) -> None:
+        """A stage fed at the emitter (common base): the signal row runs into the emitter lead;
+        the base sits a row beside it, away from the emitter (above for NPN), with its bias
+        and decoupling parts hanging from the base row to local ground or supply symbols."""
+        _, b, e = st.q.nodes
+        s = -1 if _is_pnp(st.q, self.d) else 1
+        ty = self.home[st.tap][1]
+        if b in self.home:
+            raise _NotAChain("base node placed elsewhere")
+        if st.link is not None:
+            end = self.link(st.link, st.tap, e)
+            self.place_node(e, (end, ty))
+        else:
+            self.space.corridors.pop(st.tap, None)
+            end = self.bus_end[e]
+        ty_b = ty + s * SIDE
+        width = (self.lane_count(b) - 1) * LANE
+        x_base = max(end + 0.6 - _BJT_DX, 0.6 + 1.6 + width) + extra
+        self.place_node(b, (x_base - 1.6 - width, ty_b))
+        homed = self.place_bjt(st.q, x_base, ty_b, st.out_tap, shared_ok=False, join=(e,))
+        self.hang(b, 0)
+        if not self.space.h_ok(ty_b, self.bus_end[b], x_base + _BJT_BOX[0] - EPS, b):
+            raise _NotAChain("no room for the base row")
+        self.extend_bus(b, x_base)
+        self.lane_start[e] = x_base + _BJT_DX  # the emitter's own parts right under its lead
+        self.hang(e, -s)
+        if st.out_tap in homed:
+            xo, yo = self.home[st.out_tap]
+            self.space.corridors[st.out_tap] = (yo, xo)
+        for node, direction in homed.items():
+            self.hang(node, direction)
+
+    def turn(self, node: str, at: Point, y: float) -> None:
+        """A wire from a point on node's bus to height y."""
+        if not self.space.v_ok(at[0], at[1], y, node):
+            raise _NotAChain(f"no room to turn {node}")
+        self.wire(at, (at[0], y), node)
+
+    def row_part(self, part: Part, a_node: str, a: Point, z_node: str, x_end: float) -> None:
+        """Part along a row, from a (on a_node) to x_end (z_node)."""
+        if not self.space.h_ok(a[1], a[0], x_end, a_node, z_node):
+            raise _NotAChain(f"no room for {part.ref}")
+        self.space.add_h(a[1], a[0], x_end, a_node, z_node)
+        self.two(part, a_node, a, (x_end, a[1]), ("above", "below"))
+
+    def across(self, part: Part, a_node: str, a: Point, z_node: str, z: Point) -> None:
+        """Part from a point on a_node to the home of z_node (a row or a turn, then a row);
+        z_node's own parts then leave its bus a little further on, so that the home is a T
+        joint and not a four-way one."""
+        if abs(a[1] - z[1]) > EPS:
+            self.turn(a_node, a, z[1])
+            a = (a[0], z[1])
+        self.row_part(part, a_node, a, z_node, z[0])
+        self.lane_start[z_node] = z[0] + 1.0
 
     def output(self, tap: str, out_link: Part | None) -> None:
         """Output terminal, the design's own parts there, then the load (dashed frame)."""
@@ -711,7 +915,7 @@ class _ChainBuilder(_Builder):
                 raise _NotAChain("no room for the output terminal")
             self.extend_bus(tap, x)
             at = (x, ty)
-            if tap == "out":  # the terminal on the same wire already names it
+            if tap == d.output:  # the terminal on the same wire already names it
                 self.sheet.node_tags = [t for t in self.sheet.node_tags if t[1] != tap]
         self.sheet.terminals.append((at, "out"))
         self.space.corridors[d.output] = (at[1], at[0])  # keep the way to the load free
@@ -722,16 +926,23 @@ class _ChainBuilder(_Builder):
 class _NetBuilder(_Builder):
     """Generic layout for any netlist: transistors left to right in signal order, each with the
     parts that hang from its nodes to the rails wired in; parts between two such nodes are
-    drawn apart with both ends named by node."""
+    drawn apart with both ends named by node.
+
+    Nothing here assumes where the signal enters a transistor: the input terminal is wired
+    only to the parts that touch the input node (their far ends named), and each transistor's
+    base row starts, named, a clear gap after whatever lies to its left, so that no node's
+    wiring reads as the continuation of another's.
+    """
 
     def build(self) -> _Sheet:
         d = self.d
         self.strict = False
         self.source(required=True)
         self.hang(d.input, 0)
+        self.input_links()
         for q in _signal_order(d):
             b = q.nodes[1]
-            x0 = self.space.right_edge() + 0.5
+            x0 = self.space.right_edge() + 1.5
             if b in self.home or b in self.rails:
                 x_base = x0 + 1.6
                 self.wire((x_base - 1.0, 0.0), (x_base, 0.0), b)
@@ -748,7 +959,7 @@ class _NetBuilder(_Builder):
         width = max((sum(self.name_width(n) for n in p.nodes) + L + 0.6
                      for p in self.passives if p.ref not in self.used), default=-1.0)
         # output terminal, the parts hanging from it, and the load
-        x_out = max(self.space.right_edge(), x_links + width + 1.0)
+        x_out = max(self.space.right_edge() + 0.5, x_links + width + 1.0)
         at = (x_out, 0.0)
         self.sheet.terminals.append((at, "out"))
         if d.output in self.home:
@@ -762,9 +973,9 @@ class _NetBuilder(_Builder):
             self.load(at, max(self.bus_end[d.output], x_out))
         links = sorted((p for p in self.passives if p.ref not in self.used),
                        key=lambda p: _natural_key(p.ref))
-        for i, p in enumerate(links):
+        for i, p in enumerate(links):  # below the signal row: no row continues into a terminal
             n1, n2 = p.nodes[0], p.nodes[1]
-            y = -2.2 * i
+            y = -2.2 * (i + 1)
             a = (x_links + self.name_width(n1) + 0.3, y)
             b = (a[0] + L, y)
             self.two(p, n1, a, b, ("above", "below"))
@@ -772,6 +983,39 @@ class _NetBuilder(_Builder):
             self.net_end(b, n2, "right")
         self.check_all_drawn()
         return self.sheet
+
+    def input_links(self) -> None:
+        """Parts from the input node to other placed or transistor nodes, wired from the input
+        terminal (the last along the signal row, any others hanging below it), far ends named."""
+        d = self.d
+        links = sorted((p for p in self.unused_at(d.input)
+                        if _other(p, d.input) not in self.rails),
+                       key=lambda p: _natural_key(p.ref))
+        if not links:
+            return
+        *drops, last = links
+        for part in drops:
+            other = _other(part, d.input)
+            for x in self.lanes(d.input):
+                end = (x, -L)
+                if (self.space.h_ok(0.0, self.bus_end[d.input], x, d.input)
+                        and self.space.v_ok(x, 0.0, -L - 0.6, d.input, other)):
+                    self.extend_bus(d.input, x)
+                    self.space.add_v(x, 0.0, -L, d.input, other)
+                    self.two(part, d.input, (x, 0.0), end, ("right", "left"))
+                    self.net_end(end, other, "down")
+                    break
+            else:
+                self.no_room(part)
+        other = _other(last, d.input)
+        start = self.bus_end[d.input] + (1.0 if drops else 0.0)
+        if not self.space.h_ok(0.0, self.bus_end[d.input], start + L, d.input, other):
+            self.no_room(last)
+            return
+        self.extend_bus(d.input, start)
+        self.space.add_h(0.0, start, start + L, d.input, other)
+        self.two(last, d.input, (start, 0.0), (start + L, 0.0), ("above", "below"))
+        self.net_end((start + L, 0.0), other, "right")
 
     def name_width(self, node: str) -> float:
         return _text_box(_node_text(self.d, self.sheet, node), SMALL)[0]
@@ -785,7 +1029,7 @@ def _other(part: Part, node: str) -> str:
 def _symbol_box(x: float, y: float, direction: int) -> Box:
     """Room taken by a local ground symbol (below y) or supply flag and its text (above y)."""
     if direction > 0:
-        return (x - 0.8, y, x + 0.8, y + 1.1)
+        return (x - 0.8, y, x + 0.8, y + 1.2)
     return (x - 0.45, y - 0.8, x + 0.45, y)
 
 
@@ -807,6 +1051,7 @@ def _net_end(sheet: _Sheet, design: Design, at: Point, node: str, toward: str) -
         sheet.flags.append(at)
         return
     sheet.marks.append(at)
+    sheet.names.append((at, node))
     pos, ha, va = {"up": ((x, y + 0.15), "center", "bottom"),
                    "down": ((x, y - 0.15), "center", "top"),
                    "left": ((x - 0.18, y), "right", "center"),
@@ -883,13 +1128,14 @@ def _generic_sheet(design: Design, texts: Mapping[str, str]) -> _Sheet:
     # source block: EMF, Rs, input terminal
     rs = design.source_resistance
     sheet.twos.append(_Two("vs", "source", (0.0, -L), (0.0, 0.0), "vs", external=True,
-                           sides=("left",)))
+                           sides=("left",),
+                           nodes=(design.ground, _EMF if rs > 0 else design.input)))
     sheet.grounds.append(((0.0, -L), True))
     x_in = L + 0.75 if rs > 0 else 1.5
     if rs > 0:
         sheet.twos.append(_Two("Rs", "resistor", (0.0, 0.0), (L, 0.0),
                                f"Rs\n{texts.get('Rs', _fmt(rs, 'Ω'))}", external=True,
-                               sides=("above",)))
+                               sides=("above",), nodes=(_EMF, design.input)))
         sheet.wires.append(((L, 0.0), (x_in, 0.0), True))
     else:
         sheet.wires.append(((0.0, 0.0), (x_in, 0.0), True))
@@ -907,7 +1153,7 @@ def _generic_sheet(design: Design, texts: Mapping[str, str]) -> _Sheet:
             q = order[i]
             pnp = _is_pnp(q, design)
             base = (x + 1.6, 0.0)
-            sheet.bjts.append(_Bjt(q.ref, pnp, base, _part_text(q, design, texts)))
+            sheet.bjts.append(_Bjt(q.ref, pnp, base, _part_text(q, design, texts), q.nodes))
             c, b, e = q.nodes
             xt = base[0] + _BJT_DX
             top, bottom = (e, c) if pnp else (c, e)
@@ -927,9 +1173,11 @@ def _generic_sheet(design: Design, texts: Mapping[str, str]) -> _Sheet:
                 n1, n2 = n2, n1
             a, bpt = (px, y_top), (px, y_top - L)
             positive = _polarity_of(design, p) if p.kind == "capacitor" else None
-            pa, pb = (bpt, a) if positive is not None and positive == n2 else (a, bpt)
+            flip = positive is not None and positive == n2
+            pa, pb = (bpt, a) if flip else (a, bpt)
             sheet.twos.append(_Two(p.ref, p.kind, pa, pb, _part_text(p, design, texts),
-                                   polarized=positive is not None, sides=("right", "left")))
+                                   polarized=positive is not None, sides=("right", "left"),
+                                   nodes=(n2, n1) if flip else (n1, n2)))
             end(a, n1, "up")
             end(bpt, n2, "down")
         x += width + 1.0
@@ -942,7 +1190,8 @@ def _generic_sheet(design: Design, texts: Mapping[str, str]) -> _Sheet:
     sheet.wires.append(((x, 0.0), (x_load, 0.0), True))
     sheet.twos.append(_Two("RL", "resistor", (x_load, 0.0), (x_load, -L),
                            f"RL\n{texts.get('RL', _fmt(design.load_resistance, 'Ω'))}",
-                           external=True, sides=("right",)))
+                           external=True, sides=("right",),
+                           nodes=(design.output, design.ground)))
     sheet.grounds.append(((x_load, -L), True))
     x_right = x_load
     if design.load_capacitance > 0:
@@ -950,7 +1199,8 @@ def _generic_sheet(design: Design, texts: Mapping[str, str]) -> _Sheet:
         sheet.wires.append(((x_load, 0.0), (x_right, 0.0), True))
         sheet.twos.append(_Two("CL", "capacitor", (x_right, 0.0), (x_right, -L),
                                f"CL\n{texts.get('CL', _fmt(design.load_capacitance, 'F'))}",
-                               external=True, sides=("right",)))
+                               external=True, sides=("right",),
+                               nodes=(design.output, design.ground)))
         sheet.grounds.append(((x_right, -L), True))
     sheet.frames.append(((x_load - 0.7, -L - 1.0, x_right + 1.9, 1.5), "load"))
     return sheet
@@ -1038,6 +1288,135 @@ def _resolve(sheet: _Sheet, y_top: float, y_bot: float):
     return placed, wires, grounds, rail_xs
 
 
+# ---------------------------------------------------------------------------
+# Faithfulness: what a reader would take from the drawing against the netlist
+# ---------------------------------------------------------------------------
+def _pins(sheet: _Sheet, design: Design, placed, grounds, rail) -> list[tuple[Point, str, bool]]:
+    """Every point the drawing ties to a node: part and transistor terminals, rail symbols,
+    the in/out terminals and node names; True where the point names its node to a reader."""
+    pins: list[tuple[Point, str, bool]] = []
+    for pl in placed:
+        pins += [(pl.p, pl.two.nodes[0], False), (pl.q, pl.two.nodes[1], False)]
+    for q in sheet.bjts:
+        bx, by = q.base
+        s = -1 if q.pnp else 1
+        c, b, e = q.nodes
+        pins += [((bx, by), b, False), ((bx + _BJT_DX, by + s * _BJT_DY), c, False),
+                 ((bx + _BJT_DX, by - s * _BJT_DY), e, False)]
+    pins += [(p, design.ground, True) for p, _ in grounds]
+    pins += [(p, design.supply_node, True) for p in sheet.flags]
+    if rail is not None:
+        pins.append((rail[0], design.supply_node, True))
+    term_node = {"in": design.input, "out": design.output}
+    pins += [(p, term_node.get(name, name), True) for p, name in sheet.terminals]
+    pins += [(p, node, True) for p, node in sheet.names]
+    pins += [(p, node, True) for p, node, required in sheet.node_tags if required]
+    return pins
+
+
+def _touches(p: Point, a: Point, b: Point) -> bool:
+    """p on segment a-b, ends included."""
+    return math.dist(p, a) < 1e-4 or math.dist(p, b) < 1e-4 or _on_segment(p, a, b)
+
+
+def _seg_dist(p: Point, a: Point, b: Point) -> float:
+    """Distance from p to segment a-b."""
+    ax, ay = a
+    dx, dy = b[0] - ax, b[1] - ay
+    n2 = dx * dx + dy * dy
+    t = 0.0 if n2 < EPS else max(0.0, min(1.0, ((p[0] - ax) * dx + (p[1] - ay) * dy) / n2))
+    return math.dist(p, (ax + t * dx, ay + t * dy))
+
+
+def _crosses(s1: tuple[Point, Point], s2: tuple[Point, Point]) -> bool:
+    """A horizontal and a vertical segment crossing inside both (no joint: a crossing)."""
+    (a, b), (c, d) = s1, s2
+    if abs(a[1] - b[1]) < EPS and abs(c[0] - d[0]) < EPS:
+        (a, b), (c, d) = (c, d), (a, b)
+    if not (abs(a[0] - b[0]) < EPS and abs(c[1] - d[1]) < EPS):
+        return False
+    x, y = a[0], c[1]
+    return (min(a[1], b[1]) + EPS < y < max(a[1], b[1]) - EPS
+            and min(c[0], d[0]) + EPS < x < max(c[0], d[0]) - EPS)
+
+
+def _faults(sheet: _Sheet, design: Design) -> list[str]:
+    """Where the drawing would tell a reader something the netlist does not say: conductors of
+    two nodes joined, a node drawn in unnamed pieces, wires crossing, or a terminal or node
+    name so close to another node's conductor that it reads as joined to it. Empty: faithful."""
+    y_top, y_bot = _rails(sheet)
+    placed, wires, grounds, rail_xs = _resolve(sheet, y_top, y_bot)
+    rail = _rail_segment(rail_xs, y_top)
+    segs = [(a, b) for a, b, _ in wires if math.dist(a, b) > EPS]
+    segs += [lead for pl in placed for lead in pl.leads if math.dist(*lead) > EPS]
+    if rail is not None:
+        segs.append(rail)
+    pins = _pins(sheet, design, placed, grounds, rail)
+    parent = list(range(len(segs) + len(pins)))
+
+    def find(i: int) -> int:
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    def join(i: int, j: int) -> None:
+        parent[find(i)] = find(j)
+
+    faults = []
+    for i, (a, b) in enumerate(segs):
+        for j in range(i + 1, len(segs)):
+            c, d = segs[j]
+            if _touches(c, a, b) or _touches(d, a, b) or _touches(a, c, d) or _touches(b, c, d):
+                join(i, j)
+            elif _crosses((a, b), (c, d)):
+                faults.append(f"wires cross at {a}-{b} and {c}-{d}")
+    n = len(segs)
+    for k, (p, _, _) in enumerate(pins):
+        for i, (a, b) in enumerate(segs):
+            if _touches(p, a, b):
+                join(n + k, i)
+        for m in range(k + 1, len(pins)):
+            if math.dist(p, pins[m][0]) < 1e-4:
+                join(n + k, n + m)
+    nodes_of: dict[int, set[str]] = {}
+    named: dict[int, bool] = {}
+    for k, (_, node, names) in enumerate(pins):
+        root = find(n + k)
+        nodes_of.setdefault(root, set()).add(node)
+        named[root] = named.get(root, False) or names
+    for nodes in nodes_of.values():
+        if len(nodes) > 1:
+            faults.append(f"nodes {sorted(nodes)} drawn joined")
+    pieces: dict[str, list[int]] = {}
+    for root, nodes in nodes_of.items():
+        for node in nodes:
+            pieces.setdefault(node, []).append(root)
+    for node, roots in pieces.items():
+        if len(roots) > 1 and not all(named[r] for r in roots):
+            faults.append(f"node {node} drawn in pieces, not every piece named")
+    # open ends a reader would join by eye: terminals and node names near another node
+    open_ends = {t for t, _ in sheet.terminals} | {t for t, _ in sheet.names}
+    for k, (p, node, _) in enumerate(pins):
+        if p not in open_ends:
+            continue
+        root = find(n + k)
+        near = [i for i, (a, b) in enumerate(segs) if find(i) != root
+                and _seg_dist(p, a, b) < NEAR]
+        near += [n + m for m, (q, _, _) in enumerate(pins) if find(n + m) != root
+                 and math.dist(p, q) < NEAR]
+        if near:
+            faults.append(f"{node} at {p} reads as joined to {nodes_of[find(near[0])]}")
+    return faults
+
+
+def _rail_segment(rail_xs: list[float], y_top: float) -> tuple[Point, Point] | None:
+    """The supply rail: from its open terminal at the left to the rightmost part on it."""
+    if not rail_xs:
+        return None
+    return ((min(rail_xs) - 0.8, y_top), (max(rail_xs), y_top))
+
+
 def _junctions(segments: list[tuple[Point, Point]], ends: list[Point],
                open_points: list[Point]) -> list[Point]:
     """Points where three or more conductors meet (T joints included): the junction dots."""
@@ -1118,6 +1497,16 @@ def _body_box(p: Point, q: Point, kind: str) -> Box:
     return (mid[0] - half_len, mid[1] - half_w, mid[0] + half_len, mid[1] + half_w)
 
 
+def _plus_box(p: Point, q: Point) -> Box:
+    """Room of the + that schemdraw writes beside a polarized capacitor's first plate (its
+    SegmentText sits 0.216 before that plate and 0.18 to the left of the direction p -> q)."""
+    length = math.dist(p, q) or 1.0
+    ux, uy = (q[0] - p[0]) / length, (q[1] - p[1]) / length
+    mx, my = (p[0] + q[0]) / 2 - 0.09 * ux, (p[1] + q[1]) / 2 - 0.09 * uy
+    cx, cy = mx - 0.216 * ux - 0.18 * uy, my - 0.216 * uy + 0.18 * ux
+    return (cx - 0.3, cy - 0.3, cx + 0.3, cy + 0.4)
+
+
 def _render(sheet: _Sheet, title: str) -> str:
     """Turn the sheet into SVG with schemdraw's own SVG backend (no matplotlib needed)."""
     import schemdraw
@@ -1129,9 +1518,8 @@ def _render(sheet: _Sheet, title: str) -> str:
     segments: list[tuple[Point, Point]] = [(a, b) for a, b, _ in wires]
     for pl in placed:
         segments.extend(pl.leads)
-    rail = None
-    if rail_xs:
-        rail = ((min(rail_xs) - 0.8, y_top), (max(rail_xs), y_top))
+    rail = _rail_segment(rail_xs, y_top)
+    if rail is not None:
         segments.append(rail)
     # frames are drawn around finite contents; DOWN in a frame means "below the ground symbols"
     frames = []
@@ -1142,13 +1530,15 @@ def _render(sheet: _Sheet, title: str) -> str:
     for pl in placed:
         taken.append(_seg_box(pl.p, pl.q))
         taken.append(_body_box(pl.p, pl.q, pl.two.kind))
+        if pl.two.polarized:
+            taken.append(_plus_box(pl.p, pl.q))
     for q in sheet.bjts:
         bx, by = q.base
         taken.append((bx + _BJT_BOX[0], by + _BJT_BOX[1], bx + _BJT_BOX[2], by + _BJT_BOX[3]))
     for (gx, gy), _ in grounds:
         taken.append((gx - 0.4, gy - 0.7, gx + 0.4, gy))
     for fx, fy in sheet.flags:
-        taken.append((fx - 0.8, fy, fx + 0.8, fy + 1.05))
+        taken.append((fx - 0.8, fy, fx + 0.8, fy + 1.15))
     for (tx, ty), _ in sheet.terminals:
         taken.append((tx - 0.4, ty + 0.1, tx + 0.4, ty + 0.6))
         taken.append((tx - 0.15, ty - 0.15, tx + 0.15, ty + 0.15))
@@ -1179,8 +1569,8 @@ def _render(sheet: _Sheet, title: str) -> str:
     for (nx, ny), node, required in sheet.node_tags:
         w, h = _text_box(node, SMALL)
         best = None
-        for dx, dy, ha, va in ((0.12, 0.08, "left", "bottom"), (-0.12, 0.08, "right", "bottom"),
-                               (0.12, -0.08, "left", "top"), (-0.12, -0.08, "right", "top")):
+        for dx, dy, ha, va in ((0.16, 0.12, "left", "bottom"), (-0.16, 0.12, "right", "bottom"),
+                               (0.16, -0.12, "left", "top"), (-0.16, -0.12, "right", "top")):
             x0 = nx + dx if ha == "left" else nx + dx - w
             y0 = ny + dy if va == "bottom" else ny + dy - h
             box = (x0, y0, x0 + w, y0 + h)
@@ -1241,7 +1631,7 @@ def _render(sheet: _Sheet, title: str) -> str:
             d.add(elm.Ground(color=GREY if ext else "black").theta(0).at(p))
         for fx, fy in sheet.flags:
             d.add(elm.Vdd().theta(0).at((fx, fy)))
-            d.add(elm.Label().at((fx, fy + 0.55)).label(
+            d.add(elm.Label().at((fx, fy + 0.62)).label(
                 sheet.supply_text, halign="center", valign="bottom", fontsize=FONT))
         if rail is not None:
             d.add(elm.Line().endpoints(*rail))
