@@ -125,7 +125,7 @@ def feasible_specs(draw: st.DrawFn) -> dict[str, Any]:
     Rac = RC || RL with RC ~ RL (common practice), so swing <= 0.3 * VCC.
     """
     rf = draw(st.booleans()) and draw(st.booleans())  # about one spec in four
-    if rf:  # IF / video band with the fast preset
+    if rf:  # IF / wideband spec with the fast preset
         preset = "rf-npn"
         vcc = draw(st.sampled_from([5.0, 6.0, 8.0, 9.0, 10.0]))  # vce_max 12 V
         tol = draw(st.sampled_from([0.0, 0.05, 0.1]))

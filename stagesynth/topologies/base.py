@@ -19,11 +19,13 @@ A family is a module with these attributes (see common_emitter.py for one):
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..netlist import Design
+from ..netlist import Design, Part
+from ..spec import Spec
 
 FLOOR = 1e-3  # ohm: stands for "no resistor here" inside a candidate batch
 
@@ -49,6 +51,39 @@ class Conflict:
     limit: str
     best: str
     advice: str
+
+
+def make_design(
+    spec: Spec,
+    name: str,
+    nodes: Mapping[str, tuple[str, str]],
+    values: Mapping[str, float],
+    bjts: Mapping[str, tuple[str, str, str]],
+    roles: Mapping[str, str],
+    title: str = "",
+) -> Design:
+    """A family's netlist: passive parts (ref -> nodes, values) and transistors (ref ->
+    c, b, e), all of the spec's device "Q", with the spec's source, load and conditions."""
+    pnp = spec.transistor.polarity == "pnp"
+    parts = [Part(ref, "resistor" if ref.startswith("R") else "capacitor", nodes[ref],
+                  float(values[ref])) for ref in nodes]
+    parts += [Part(ref, "bjt", cbe, device="Q") for ref, cbe in bjts.items()]
+    r = spec.require
+    return Design(
+        parts=tuple(parts),
+        devices={"Q": spec.transistor},
+        supply_voltage=spec.supply.voltage,
+        load_resistance=spec.load.resistance,
+        source_resistance=spec.source.resistance,
+        load_capacitance=spec.load.capacitance,
+        title=title or spec.title,
+        topology=name + ("-pnp" if pnp else "-npn"),
+        band=(r.f_low, r.f_high),
+        extra={
+            "roles": dict(roles),
+            "conditions": {"ambient": list(r.ambient), "supply_tolerance": spec.supply.tolerance},
+        },
+    )
 
 
 def finalize(family, spec, values: dict[str, float]) -> Design:

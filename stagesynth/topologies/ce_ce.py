@@ -27,12 +27,11 @@ import numpy as np
 
 from ..netlist import Design
 from ..spec import Spec
-from .base import Conflict, FirstCut
+from .base import Conflict, FirstCut, make_design
 from .ce_ef import (
     VT25,
     divider,
     gbw_conflict,
-    make_design,
     nonempty,
     par,
     prefer,

@@ -27,9 +27,9 @@ from collections.abc import Callable, Mapping
 import numpy as np
 
 from ..device import T_REF_C, Device, thermal_voltage
-from ..netlist import Design, Part
+from ..netlist import Design
 from ..spec import Spec
-from .base import Conflict, FirstCut
+from .base import Conflict, FirstCut, make_design
 from .common_emitter import _vbe, ic_range
 
 NAME = "ce_ef"
@@ -50,38 +50,6 @@ def rails(spec: Spec) -> tuple[bool, str, str]:
     """(pnp, emitter rail, collector rail): the PNP mirror swaps supply and ground."""
     pnp = spec.transistor.polarity == "pnp"
     return pnp, ("vcc" if pnp else "0"), ("0" if pnp else "vcc")
-
-
-def make_design(
-    spec: Spec,
-    name: str,
-    nodes: Mapping[str, tuple[str, str]],
-    values: Mapping[str, float],
-    bjts: Mapping[str, tuple[str, str, str]],
-    roles: Mapping[str, str],
-    title: str = "",
-) -> Design:
-    """A Design from passive-part nodes, values and transistors (c, b, e), all using device Q."""
-    pnp = spec.transistor.polarity == "pnp"
-    parts = [Part(ref, "resistor" if ref.startswith("R") else "capacitor", nodes[ref],
-                  float(values[ref])) for ref in nodes]
-    parts += [Part(ref, "bjt", cbe, device="Q") for ref, cbe in bjts.items()]
-    r = spec.require
-    return Design(
-        parts=tuple(parts),
-        devices={"Q": spec.transistor},
-        supply_voltage=spec.supply.voltage,
-        load_resistance=spec.load.resistance,
-        source_resistance=spec.source.resistance,
-        load_capacitance=spec.load.capacitance,
-        title=title or spec.title,
-        topology=name + ("-pnp" if pnp else "-npn"),
-        band=(r.f_low, r.f_high),
-        extra={
-            "roles": dict(roles),
-            "conditions": {"ambient": list(r.ambient), "supply_tolerance": spec.supply.tolerance},
-        },
-    )
 
 
 def divider(dev: Device, vcc: float, vth: np.ndarray, rth: np.ndarray

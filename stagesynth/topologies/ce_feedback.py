@@ -30,8 +30,9 @@ import numpy as np
 from ..device import T_REF_C, thermal_voltage
 from ..netlist import Design
 from ..spec import Spec
-from .base import Conflict, FirstCut
-from .emitter_follower import make_design, vbe25
+from . import common_emitter
+from .base import Conflict, FirstCut, make_design
+from .emitter_follower import vbe25
 
 NAME = "ce_fb"
 TITLE = "common emitter, collector-feedback bias, split emitter resistor"
@@ -71,7 +72,7 @@ def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
         "C3": ("x1", rail_e),
         "C4": ("m1", rail_e),
     }
-    return make_design(spec, NAME, nodes, values, ("c1", "b1", "e1"), ROLES, title)
+    return make_design(spec, NAME, nodes, values, {"Q1": ("c1", "b1", "e1")}, ROLES, title)
 
 
 def feedback_ic(beta: float | np.ndarray, vcc: float, vbe: float | np.ndarray,
@@ -145,19 +146,7 @@ def _first_re1(spec: Spec, values: dict[str, np.ndarray], ic: np.ndarray) -> np.
 
 def precheck(spec: Spec) -> list[Conflict]:
     """What a single common-emitter stage, however biased, can never do."""
-    out = []
-    r = spec.require
-    if r.inverting == "no":
-        out.append(Conflict("inverting", "no", "a common-emitter stage always inverts",
-                            'set inverting = "any" or "yes", or use a non-inverting circuit'))
-    gbw = r.gain * r.f_high
-    if gbw > spec.transistor.ft:
-        out.append(Conflict(
-            "f_high", f"{r.f_high:.4g} Hz at {r.gain:.3g} V/V",
-            f"one transistor's gain × bandwidth stays below fT = {spec.transistor.ft:.4g} Hz; "
-            f"this asks {gbw:.4g} Hz",
-            "lower the gain or f_high, use two stages, or a transistor with a higher fT"))
-    return out
+    return common_emitter.precheck(spec)
 
 
 def describe(spec: Spec, design: Design, analysis) -> list[str]:

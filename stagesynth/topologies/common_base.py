@@ -22,8 +22,8 @@ import numpy as np
 from ..device import T_REF_C, thermal_voltage
 from ..netlist import Design
 from ..spec import Spec
-from .base import Conflict, FirstCut
-from .emitter_follower import divider, make_design, vbe25
+from .base import Conflict, FirstCut, make_design
+from .emitter_follower import divider, vbe25
 
 NAME = "cb"
 TITLE = "common base, divider bias, bypassed base"
@@ -60,7 +60,7 @@ def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
         "C2": ("c1", "out"),
         "C3": ("b1", rail_e),
     }
-    return make_design(spec, NAME, nodes, values, ("c1", "b1", "e1"), ROLES, title)
+    return make_design(spec, NAME, nodes, values, {"Q1": ("c1", "b1", "e1")}, ROLES, title)
 
 
 def input_resistance_bound(spec: Spec) -> float:

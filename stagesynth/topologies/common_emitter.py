@@ -19,9 +19,9 @@ from __future__ import annotations
 import numpy as np
 
 from ..device import T_REF_C, Device, thermal_voltage
-from ..netlist import Design, Part
+from ..netlist import Design
 from ..spec import Spec
-from .base import Conflict, FirstCut
+from .base import Conflict, FirstCut, make_design
 
 NAME = "ce"
 TITLE = "common emitter, divider bias, split emitter resistor"
@@ -48,37 +48,18 @@ def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
         "C2": ("c1", "out"),
         "C3": ("x1", rail_e),
     }
-    parts = []
-    for ref in (*RESISTOR_ROLES, *CAPACITOR_ROLES):
-        kind = "resistor" if ref.startswith("R") else "capacitor"
-        parts.append(Part(ref, kind, nodes[ref], float(values[ref])))
-    parts.append(Part("Q1", "bjt", ("c1", "b1", "e1"), device="Q"))
-    r = spec.require
-    return Design(
-        parts=tuple(parts),
-        devices={"Q": spec.transistor},
-        supply_voltage=spec.supply.voltage,
-        load_resistance=spec.load.resistance,
-        source_resistance=spec.source.resistance,
-        load_capacitance=spec.load.capacitance,
-        title=title or spec.title,
-        topology=NAME + ("-pnp" if pnp else "-npn"),
-        band=(r.f_low, r.f_high),
-        extra={
-            "roles": {
-                "R1": "bias divider, supply side",
-                "R2": "bias divider, ground side",
-                "R3": "collector load RC",
-                "R4": "emitter degeneration RE1 (unbypassed)",
-                "R5": "emitter bias RE2 (bypassed)",
-                "C1": "input coupling",
-                "C2": "output coupling",
-                "C3": "emitter bypass",
-                "Q1": "amplifying transistor",
-            },
-            "conditions": {"ambient": list(r.ambient), "supply_tolerance": spec.supply.tolerance},
-        },
-    )
+    roles = {
+        "R1": "bias divider, supply side",
+        "R2": "bias divider, ground side",
+        "R3": "collector load RC",
+        "R4": "emitter degeneration RE1 (unbypassed)",
+        "R5": "emitter bias RE2 (bypassed)",
+        "C1": "input coupling",
+        "C2": "output coupling",
+        "C3": "emitter bypass",
+        "Q1": "amplifying transistor",
+    }
+    return make_design(spec, NAME, nodes, values, {"Q1": ("c1", "b1", "e1")}, roles, title)
 
 
 def _vbe(dev: Device, ic: np.ndarray) -> np.ndarray:

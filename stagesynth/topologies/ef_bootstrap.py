@@ -24,13 +24,12 @@ import numpy as np
 
 from ..netlist import Design
 from ..spec import Spec
-from .base import Conflict, FirstCut
+from .base import Conflict, FirstCut, make_design
 from .emitter_follower import (
     divider,
     follower_conflicts,
     follower_ic_range,
     follower_notes,
-    make_design,
     vbe25,
 )
 
@@ -68,7 +67,7 @@ def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
         "C2": ("e1", "out"),
         "C3": ("e1", "x1"),
     }
-    return make_design(spec, NAME, nodes, values, (rail_c, "b1", "e1"), ROLES, title)
+    return make_design(spec, NAME, nodes, values, {"Q1": (rail_c, "b1", "e1")}, ROLES, title)
 
 
 def first_cut(spec: Spec, *, ic_points: int = 12) -> FirstCut:

@@ -19,9 +19,9 @@ from __future__ import annotations
 import numpy as np
 
 from ..device import T_REF_C, Device, thermal_voltage
-from ..netlist import Design, Part
+from ..netlist import Design
 from ..spec import Spec
-from .base import Conflict, FirstCut
+from .base import Conflict, FirstCut, make_design
 
 NAME = "ef"
 TITLE = "emitter follower, divider bias"
@@ -41,34 +41,6 @@ ROLES = {
 }
 
 
-def make_design(spec: Spec, name: str, nodes: dict[str, tuple[str, str]],
-                values: dict[str, float], transistor: tuple[str, str, str],
-                roles: dict[str, str], title: str = "") -> Design:
-    """A one-transistor Design from part nodes and values (shared by the follower modules)."""
-    parts = []
-    for ref, (a, b) in nodes.items():
-        kind = "resistor" if ref.startswith("R") else "capacitor"
-        parts.append(Part(ref, kind, (a, b), float(values[ref])))
-    parts.append(Part("Q1", "bjt", transistor, device="Q"))
-    pnp = spec.transistor.polarity == "pnp"
-    r = spec.require
-    return Design(
-        parts=tuple(parts),
-        devices={"Q": spec.transistor},
-        supply_voltage=spec.supply.voltage,
-        load_resistance=spec.load.resistance,
-        source_resistance=spec.source.resistance,
-        load_capacitance=spec.load.capacitance,
-        title=title or spec.title,
-        topology=name + ("-pnp" if pnp else "-npn"),
-        band=(r.f_low, r.f_high),
-        extra={
-            "roles": dict(roles),
-            "conditions": {"ambient": list(r.ambient), "supply_tolerance": spec.supply.tolerance},
-        },
-    )
-
-
 def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
     """The netlist for `values` (by reference designator); NPN or PNP from the spec."""
     pnp = spec.transistor.polarity == "pnp"
@@ -81,7 +53,7 @@ def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
         "C1": ("in", "b1"),
         "C2": ("e1", "out"),
     }
-    return make_design(spec, NAME, nodes, values, (rail_c, "b1", "e1"), ROLES, title)
+    return make_design(spec, NAME, nodes, values, {"Q1": (rail_c, "b1", "e1")}, ROLES, title)
 
 
 def vbe25(dev: Device, ic: np.ndarray) -> np.ndarray:
