@@ -47,6 +47,18 @@ def user_errors(func):
     return wrapper
 
 
+def _inputs(design_file: Path, spec: Path | None):
+    """The design file and, when given, the spec file: both validated (exit 2 if not)."""
+    from .netlist import load_design
+
+    design = load_design(design_file)
+    if spec is None:
+        return design, None
+    from .spec import load_spec
+
+    return design, load_spec(spec)
+
+
 @app.command()
 @user_errors
 def analyze(
@@ -69,16 +81,10 @@ def analyze(
     Monte Carlo of 10,000 units unless --yield N says otherwise.
     """
     from .analysis import analyze as run_analysis
-    from .netlist import load_design
     from .results import analysis_to_dict
     from .textout import analysis_table
 
-    design = load_design(design_file)
-    spec_obj = None
-    if spec is not None:
-        from .spec import load_spec
-
-        spec_obj = load_spec(spec)
+    design, spec_obj = _inputs(design_file, spec)
     analysis = run_analysis(design, spec_obj)
     verdict = None
     extra: dict = {}
@@ -243,19 +249,13 @@ def caps(
     from .analysis import analyze as run_analysis
     from .capsizing import size_capacitors
     from .fileio import OutputDir
-    from .netlist import load_design
     from .results import predicted_block
     from .units import parse_quantity
 
     target = parse_quantity(f_low, "Hz", key="--f-low")
     if target <= 0:
         raise StageError("must be positive", key="--f-low", accepted='e.g. "5 Hz"')
-    d = load_design(design_file)
-    spec_obj = None
-    if spec is not None:
-        from .spec import load_spec
-
-        spec_obj = load_spec(spec)
+    d, spec_obj = _inputs(design_file, spec)
     env = Environment.for_design(d, spec_obj)
     f_high = env.band[1] if env.band else run_analysis(d).f_high
     if not math.isfinite(f_high):
@@ -265,9 +265,12 @@ def caps(
         raise StageError(f"{target:g} Hz is not below the high corner {f_high:g} Hz",
                          key="--f-low", accepted="a frequency below f_high")
     env = replace(env, band=(target, f_high))
-    series = spec_obj.parts.capacitors if spec_obj else d.extra.get("synthesis", {}).get(
-        "capacitor_series", "E6")
-    tol = spec_obj.parts.capacitor_tolerance if spec_obj else 0.1
+    recorded = d.extra.get("synthesis", {}) if isinstance(d.extra.get("synthesis"), dict) else {}
+    if spec_obj is not None:
+        series, tol = spec_obj.parts.capacitors, spec_obj.parts.capacitor_tolerance
+    else:  # what the design was made with, else the spec format's defaults
+        series = recorded.get("capacitor_series", "E6")
+        tol = float(recorded.get("capacitor_tolerance", 0.1))
     before = run_analysis(d, environment=env)
     sizing = size_capacitors(d, target, env=env, series=series, tolerance=tol,
                              z_out_max=spec_obj.require.z_out if spec_obj else None)
@@ -327,15 +330,9 @@ def report(
     """Write the report, plots, schematic, parts list and Touchstone file for a design."""
     from .analysis import analyze as run_analysis
     from .fileio import OutputDir
-    from .netlist import load_design
 
-    d = load_design(design_file)
-    spec_obj = None
+    d, spec_obj = _inputs(design_file, spec)
     verdict = None
-    if spec is not None:
-        from .spec import load_spec
-
-        spec_obj = load_spec(spec)
     analysis = run_analysis(d, spec_obj)
     if spec_obj is not None:
         from .verdict import judge
@@ -367,15 +364,9 @@ def plot(
     """Redraw the Bode and impedance plots of a design (after editing a value)."""
     from .analysis import analyze as run_analysis
     from .fileio import OutputDir
-    from .netlist import load_design
     from .report.bundle import write_plots
 
-    d = load_design(design_file)
-    spec_obj = None
-    if spec is not None:
-        from .spec import load_spec
-
-        spec_obj = load_spec(spec)
+    d, spec_obj = _inputs(design_file, spec)
     analysis = run_analysis(d, spec_obj)
     outdir = OutputDir(out or design_file.parent, force=force)
     written = write_plots(outdir, d, analysis, spec_obj)

@@ -538,7 +538,9 @@ def _synthesize_family(
         "candidates": int(cut.count),
         "standard_value_combinations": len(snapped),
         "resistor_series": series,
+        "resistor_tolerance": spec.parts.resistor_tolerance,
         "capacitor_series": spec.parts.capacitors,
+        "capacitor_tolerance": spec.parts.capacitor_tolerance,
         "notes": notes,
     }
     from .results import predicted_block
