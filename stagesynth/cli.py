@@ -203,6 +203,14 @@ def design(
     for c in result.conflicts:
         typer.echo(f"  {c.name}: asked {c.limit}; best reached {c.best}.\n"
                    f"    what to relax: {c.advice}", err=True)
+    if len(result.families) > 1:
+        typer.echo("Each circuit family tried:", err=True)
+        for f in result.families:
+            if f.note:
+                typer.echo(f"  {f.name}: not tried ({f.note})", err=True)
+            else:
+                typer.echo(f"  {f.name}: fails {', '.join(f.failed)} "
+                           f"(smallest margin {100 * f.worst_margin:+.0f} %)", err=True)
     typer.echo(f"the closest design was written, marked \"meets_spec\": false: "
                f"{out / 'design.json'}", err=True)
     raise typer.Exit(1)

@@ -220,9 +220,9 @@ def _physics_conflicts(spec: Spec) -> list[Conflict]:
     if r.swing_vpp >= most:
         out.append(Conflict(
             "swing", f"{r.swing_vpp:.3g} Vpp",
-            f"no single stage can exceed about {most:.3g} Vpp here: the collector moves at "
-            f"most between the supply ({vmin:.3g} V at its low tolerance) and "
-            f"VCE(sat) = {dev.vce_sat:.3g} V",
+            f"no circuit on this supply can swing more than about {most:.3g} Vpp: the output "
+            f"transistor moves at most between the supply ({vmin:.3g} V at its low "
+            f"tolerance) and VCE(sat) = {dev.vce_sat:.3g} V",
             "ask for less swing, or raise the supply voltage",
         ))
     return out
@@ -296,7 +296,8 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
         return (f"relax f_high to {_fmt(0.98 * best, 'Hz')}, lower the gain, reduce the load "
                 "capacitance or source resistance, or choose a faster transistor")
     if name == "z_in":
-        return f"relax z_in to {_fmt(0.98 * best, 'Ω')}, or lower the source resistance's role"
+        return (f"relax z_in to {_fmt(0.98 * best, 'Ω')}, or let a follower input stage "
+                "(ef_ce) or a bootstrapped bias (ef_boot) carry the input impedance")
     if name == "z_out":
         return f"relax z_out to {_fmt(1.02 * best, 'Ω')}, or add a follower stage"
     if name == "supply_current":
@@ -510,10 +511,12 @@ def _synthesize_family(
             best_text = f"{near.best}; {c.best}" if near else c.best
             conflicts.append(Conflict(c.name, c.limit, best_text, c.advice))
         conflicts.extend(found.values())
-        if not conflicts:  # near misses after snapping: report the snapped figures
-            for c in verdict.failed:
-                conflicts.append(Conflict(c.name, str(c.limit), _fmt_check(c),
-                                          _advice(c.name, float(c.value), spec, c.unit)))
+        named = {c.name for c in conflicts}
+        for c in verdict.failed:  # every requirement the closest design misses is named
+            if c.name not in named:
+                conflicts.append(Conflict(c.name, _check_limit(c),
+                                          f"{_fmt_check(c)} in the closest design",
+                                          _advice(c.name, _number(c.value), spec, c.unit)))
     polarity = "PNP" if spec.transistor.polarity == "pnp" else "NPN"
     notes = [
         f"Circuit: {family.TITLE} ({polarity}).",
@@ -611,6 +614,16 @@ def _centre_for_yield(spec: Spec, candidates: list[int], finish, first):
         notes += [f"Tighter tolerance: {r}" for r in recommendations(
             spreads(design, spec), spec, tuple(est.failures))]
     return design, est, notes, sizing
+
+
+def _check_limit(c) -> str:
+    from .textout import check_limit
+
+    return check_limit(c)
+
+
+def _number(value) -> float:
+    return float(value) if isinstance(value, int | float) else 0.0
 
 
 def _fmt_check(c) -> str:
