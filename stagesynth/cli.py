@@ -181,11 +181,15 @@ def design(
     result = synthesize(spec, prefer=prefer, circuit=circuit)
     from dataclasses import replace
 
+    from .report.bom import capacitor_stress
     from .report.poles import pole_zero_map, poles_zeros_dict
     from .stability import robustness
 
     pz = poles_zeros_dict(pole_zero_map(result.analysis))
+    caps_info = {p.ref: capacitor_stress(result.design, result.analysis, p)
+                 for p in result.design.parts if p.kind == "capacitor"}
     final = replace(result.design, extra={**result.design.extra, "poles_zeros": pz,
+                                          "capacitors": caps_info,
                                           "robustness": robustness(result.analysis)})
     outdir.write_text("design.json", final.to_json())
     written = [out / "design.json"]

@@ -83,30 +83,50 @@ def _series_of(part: Part, spec: Spec | None) -> tuple[str, str, str]:
     return "none", "", "not an IEC 60063 value"
 
 
-def _capacitor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, str]:
+def capacitor_stress(design: Design, analysis: Analysis, part: Part) -> dict:
+    """A capacitor's DC stress as data: worst voltage, suggested rating, polarity advice."""
     a, b = part.nodes
     volts = [dc_across(design, p, a, b) for p in _points(analysis) if p.converged]
     worst = max((abs(v) for v in volts), default=math.nan)
     rating = next_rating(max(DERATING * worst, CAP_VOLTAGE_RATINGS[0]), CAP_VOLTAGE_RATINGS)
+    same_sign = bool(volts) and (all(v > 0 for v in volts) or all(v < 0 for v in volts))
+    value = float(part.value)
+    polarized = value >= ELECTROLYTIC_FROM and same_sign and worst >= POLAR_MIN_VOLTS
+    if polarized:
+        kind = "electrolytic"
+    elif value >= ELECTROLYTIC_FROM:
+        kind = "bipolar electrolytic or film"
+    else:
+        kind = "film or ceramic"
+    return {
+        "dc_voltage_max": worst if math.isfinite(worst) else None,
+        "suggested_rating_v": rating,
+        "type": kind,
+        "polarized": polarized,
+        "positive": (a if volts[0] > 0 else b) if polarized else None,
+    }
+
+
+def _capacitor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, str]:
+    st = capacitor_stress(design, analysis, part)
+    worst = st["dc_voltage_max"]
+    rating = st["suggested_rating_v"]
     rating_text = (f"{format_quantity(rating, 'V')} or more" if rating is not None
                    else "above 630 V: choose with care")
-    same_sign = volts and (all(v > 0 for v in volts) or all(v < 0 for v in volts))
-    value = float(part.value)
-    if value >= ELECTROLYTIC_FROM:
-        if same_sign and worst >= POLAR_MIN_VOLTS:
-            plus = a if volts[0] > 0 else b
-            kind = f"electrolytic suits, + to {plus}"
-            note = (f"positive end on node {plus} (higher DC voltage at every corner); "
-                    f"rating ≥ {DERATING:g}× the highest DC voltage (common practice)")
-        else:
-            kind = "bipolar (non-polar) electrolytic or film"
-            note = ("DC voltage across it is tiny or changes sign: a polarized part would be "
-                    "barely biased, so a non-polar type is safer")
+    if st["polarized"]:
+        plus = st["positive"]
+        kind = f"electrolytic suits, + to {plus}"
+        note = (f"positive end on node {plus} (higher DC voltage at every corner); "
+                f"rating ≥ {DERATING:g}× the highest DC voltage (common practice)")
+    elif st["type"] == "bipolar electrolytic or film":
+        kind = "bipolar (non-polar) electrolytic or film"
+        note = ("DC voltage across it is tiny or changes sign: a polarized part would be "
+                "barely biased, so a non-polar type is safer")
     else:
         kind = "film or ceramic (C0G/NP0 below 1 nF)"
         note = f"rating ≥ {DERATING:g}× the highest DC voltage (common practice)"
     return {
-        "dc_voltage_max": format_quantity(worst, "V") if math.isfinite(worst) else "n/a",
+        "dc_voltage_max": format_quantity(worst, "V") if worst is not None else "n/a",
         "dissipation_max": "",
         "suggested_rating": rating_text,
         "type": kind,

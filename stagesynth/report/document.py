@@ -623,12 +623,11 @@ def schematic_svg(design: Design, analysis: Analysis | None = None) -> str:
 
     positive: dict[str, str] = {}
     if analysis is not None:
-        from .bom import bom_rows
+        from .bom import capacitor_stress
 
-        marker = "electrolytic suits, + to "
-        for row in bom_rows(design, analysis):
-            if row["kind"] == "capacitor" and row["type"].startswith(marker):
-                node = row["type"][len(marker):]
-                if node in design.part(row["ref"]).nodes:
-                    positive[row["ref"]] = node
+        for part in design.parts:
+            if part.kind == "capacitor":
+                stress = capacitor_stress(design, analysis, part)
+                if stress["polarized"]:
+                    positive[part.ref] = stress["positive"]
     return draw_schematic(design, positive=positive or None)
