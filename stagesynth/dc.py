@@ -324,8 +324,8 @@ def solve_dc(
     pivot = np.tile(np.array([q.device.vbe for q in circuit.bjts]), (B, 1))
     v = np.zeros((B, circuit.n + 2))
     tj = np.repeat(model.ambient[:, None], nq, axis=1)
-    v, tj, ok, iters = _newton(model, v, tj, 1.0, 40, pivot)
-    if not np.all(ok):  # stragglers continue on their own
+    v, tj, ok, iters = _newton(model, v, tj, 1.0, min(40, max_iter), pivot)
+    if not np.all(ok) and max_iter > 40:  # stragglers continue on their own
         idx = np.flatnonzero(~ok)
         sub = model_for(idx)
         v2, tj2, ok2, k = _newton(sub, v[idx], tj[idx], 1.0, max_iter)
