@@ -185,7 +185,8 @@ def design(
     from .report.poles import pole_zero_map, poles_zeros_dict
     from .stability import robustness
 
-    pz = poles_zeros_dict(pole_zero_map(result.analysis))
+    pz_map = pole_zero_map(result.analysis)
+    pz = poles_zeros_dict(pz_map)
     caps_info = {p.ref: capacitor_stress(result.design, result.analysis, p)
                  for p in result.design.parts if p.kind == "capacitor"}
     final = replace(result.design, extra={**result.design.extra, "poles_zeros": pz,
@@ -195,7 +196,7 @@ def design(
     written = [out / "design.json"]
     if not no_report:
         written += _write_report(outdir, final, result.analysis, result.verdict, spec,
-                                 list(result.notes))
+                                 list(result.notes), pz_map)
     from .textout import analysis_table
 
     typer.echo(analysis_table(result.analysis, result.verdict))
@@ -228,12 +229,13 @@ def _report_names() -> list[str]:
     return list(BUNDLE_FILES)
 
 
-def _write_report(outdir, design, analysis, verdict, spec, notes) -> list[Path]:
+def _write_report(outdir, design, analysis, verdict, spec, notes, pz=None) -> list[Path]:
     try:
         from .report.bundle import write_bundle
     except ImportError:
         return []
-    return list(write_bundle(outdir, design, analysis, verdict=verdict, spec=spec, notes=notes))
+    return list(write_bundle(outdir, design, analysis, verdict=verdict, spec=spec, notes=notes,
+                             pz=pz))
 
 
 @app.command()

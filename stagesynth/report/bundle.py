@@ -51,8 +51,12 @@ def write_bundle(
     verdict: Verdict | None = None,
     spec: Spec | None = None,
     notes: Sequence[str] | None = None,
+    pz=None,
 ) -> list[Path]:
-    """Every report file of BUNDLE_FILES, written into `out`; returns their paths."""
+    """Every report file of BUNDLE_FILES, written into `out`; returns their paths.
+
+    `pz`: the pole/zero map when the caller has it already (it is not computed twice).
+    """
     from .bom import bom_csv, bom_rows
     from .document import report_html, report_markdown, schematic_svg
     from .poles import pole_zero_map
@@ -66,7 +70,7 @@ def write_bundle(
         "impedance": contents["impedance.svg"].decode("utf-8"),
     }
     rows = bom_rows(design, analysis, spec)
-    pz = pole_zero_map(analysis)
+    pz = pz if pz is not None else pole_zero_map(analysis)
     from ..robustness import assess_robustness
 
     rob = assess_robustness(design, analysis, spec)
