@@ -250,7 +250,7 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
                 detail = ""
             if row.name.endswith(".vce_max"):
                 top = max(pt.condition.supply for pt in points)
-                detail += (f"; operating point judged (contract); at cutoff VCE approaches "
+                detail += (f"; judged at the operating point; at cutoff VCE approaches "
                            f"the supply, up to {top:.3g} V: rate the part above that")
             if row.name.endswith(".p_max") and math.isfinite(float(row.margin[0])):
                 allowed = float(row.value[0]) / max(1.0 - float(row.margin[0]), 1e-300)

@@ -275,7 +275,7 @@ def build_document(
         bode_caption += ("Hatched areas are outside the spec: above the gain window across "
                          "the required band, and below midband − 3 dB inside it (a −3 dB point "
                          "there would break f_low or f_high); the bar at midband is the "
-                         "gain window, which the contract judges at midband.")
+                         "gain window, judged at midband.")
     else:
         bode_caption += "Circles mark the −3 dB points."
     sections.append(Section("Frequency response", (
