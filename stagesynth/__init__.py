@@ -1,3 +1,87 @@
-"""stagesynth: synthesize and verify discrete transistor gain stages."""
+"""stagesynth: synthesize and verify discrete transistor gain stages.
+
+From Python::
+
+    import stagesynth as ss
+    spec = ss.load_spec("specs/hydrophone-front-end.toml")
+    result = ss.synthesize(spec)
+    edited = result.design.with_value("R3", "4k7")
+    check = ss.analyze(edited, spec)
+    sys = ss.to_lti(edited)          # python-control StateSpace of the gain
+
+The names below load on first use (module __getattr__), so `import stagesynth`
+and `stagesynth --help` stay light.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING, Any
 
 __version__ = "0.1.0"
+
+# public name -> module that defines it
+_LAZY: dict[str, str] = {
+    "load_spec": "api",
+    "load_design": "api",
+    "synthesize": "api",
+    "analyze": "api",
+    "monte_carlo": "api",
+    "write_report": "api",
+    "resize_capacitors": "api",
+    "to_lti": "api",
+    "to_network": "api",
+    "pulse_response": "api",
+    "Result": "api",
+    "Assessment": "api",
+    "YieldResult": "api",
+    "CapacitorChange": "api",
+    "Design": "netlist",
+    "Part": "netlist",
+    "Spec": "spec",
+    "StageError": "errors",
+}
+
+__all__ = [  # noqa: RUF022 - in the order of the flow, not alphabetical
+    "__version__",
+    "load_spec", "load_design", "synthesize", "analyze", "monte_carlo", "write_report",
+    "resize_capacitors", "to_lti", "to_network", "pulse_response",
+    "Result", "Assessment", "YieldResult", "CapacitorChange", "Design", "Part", "Spec",
+    "StageError",
+]
+
+if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors
+    from .api import (
+        Assessment,
+        CapacitorChange,
+        Result,
+        YieldResult,
+        analyze,
+        load_design,
+        load_spec,
+        monte_carlo,
+        pulse_response,
+        resize_capacitors,
+        synthesize,
+        to_lti,
+        to_network,
+        write_report,
+    )
+    from .errors import StageError
+    from .netlist import Design, Part
+    from .spec import Spec
+
+
+def __getattr__(name: str) -> Any:
+    """Import the public names on first access (keeps `import stagesynth` light)."""
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module 'stagesynth' has no attribute {name!r}")
+    from importlib import import_module
+
+    value = getattr(import_module(f".{module}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted({*globals(), *_LAZY})

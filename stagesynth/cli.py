@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import functools
 import json
-import math
 import sys
 from pathlib import Path
 from typing import Annotated
@@ -47,16 +46,20 @@ def user_errors(func):
     return wrapper
 
 
-def _inputs(design_file: Path, spec: Path | None):
-    """The design file and, when given, the spec file: both validated (exit 2 if not)."""
-    from .netlist import load_design
+def _pulse_width(text: str | None) -> float | None:
+    """--pulse-width as seconds (None: the default from the spec's f_low)."""
+    if text is None:
+        return None
+    from .units import parse_quantity
 
-    design = load_design(design_file)
-    if spec is None:
-        return design, None
-    from .spec import load_spec
+    width = parse_quantity(text, "s", key="--pulse-width")
+    if not width > 0:
+        raise StageError("must be positive", key="--pulse-width", accepted='e.g. "100 µs"')
+    return width
 
-    return design, load_spec(spec)
+
+PULSE_HELP = ('Width of the pulse whose tilt the report gives, e.g. "100 µs" '
+              "(default: 1/(100·f_low)).")
 
 
 @app.command()
@@ -80,57 +83,42 @@ def analyze(
     With --spec, every requirement is judged; a spec that asks for a yield gets a
     Monte Carlo of 10,000 units unless --yield N says otherwise.
     """
-    from .analysis import analyze as run_analysis
-    from .results import analysis_to_dict
+    from . import api
     from .textout import analysis_table
 
-    design, spec_obj = _inputs(design_file, spec)
-    analysis = run_analysis(design, spec_obj)
-    verdict = None
-    extra: dict = {}
-    if units is not None and spec_obj is None:
-        raise StageError("the Monte Carlo needs the part tolerances of a spec", key="--yield",
-                         accepted="--spec SPEC.toml together with --yield N")
     if units is not None and units < 1:
         raise StageError(f"{units} is not a number of units", key="--yield",
                          accepted="a positive whole number, e.g. 10000")
-    if spec_obj is not None:
-        from .verdict import judge, with_checks, yield_check
-
-        verdict = judge(analysis, spec_obj)
-        if units is None and spec_obj.require.yield_target is not None:
-            units = 10_000
-        if units is not None:
-            est, recs = _run_monte_carlo(design, spec_obj, units, seed, quiet=as_json)
-            extra["yield"] = est.to_dict()
-            extra["tolerance_advice"] = recs
-            if spec_obj.require.yield_target is not None:
-                verdict = with_checks(
-                    verdict, yield_check(est.estimate, est.interval,
-                                         spec_obj.require.yield_target))
-    if as_json:
-        from .netlist import _clean_floats
-        from .stability import robustness
-
-        out = analysis_to_dict(analysis, verdict)
-        out["robustness"] = robustness(analysis)
-        out.update(extra)
-        typer.echo(json.dumps(_clean_floats(out), indent=2))
+    design = api.load_design(design_file)
+    spec_obj = api.load_spec(spec) if spec is not None else None
+    if units is not None and spec_obj is None:
+        raise StageError("the Monte Carlo needs the part tolerances of a spec", key="--yield",
+                         accepted="--spec SPEC.toml together with --yield N")
+    n = units if units is not None else (
+        api.YIELD_UNITS if spec_obj is not None and spec_obj.require.yield_target is not None
+        else 0)
+    if n >= 5000 and not as_json:
+        with typer.progressbar(length=n, label="Monte Carlo", file=sys.stderr) as bar:
+            result = api.analyze(design, spec_obj, units=n, seed=seed, progress=bar.update)
     else:
-        typer.echo(analysis_table(analysis, verdict))
-        if "yield" in extra:
-            y = extra["yield"]
-            lo, hi = y["interval_95"]
-            typer.echo(f"\nyield: {100 * y['estimate']:.2f} % of {y['units']} units "
-                       f"(95 % interval {100 * lo:.2f} … {100 * hi:.2f} %, seed {y['seed']})")
-            for name, count in sorted(y["failures"].items(), key=lambda kv: -kv[1]):
+        result = api.analyze(design, spec_obj, units=n, seed=seed)
+    if as_json:
+        typer.echo(json.dumps(result.to_dict(), indent=2))
+    else:
+        typer.echo(analysis_table(result.analysis, result.verdict))
+        y = result.yield_result
+        if y is not None:
+            lo, hi = y.interval
+            typer.echo(f"\nyield: {100 * y.estimate:.2f} % of {y.units} units "
+                       f"(95 % interval {100 * lo:.2f} … {100 * hi:.2f} %, seed {y.seed})")
+            for name, count in sorted(y.failures.items(), key=lambda kv: -kv[1]):
                 typer.echo(f"  {count} units fail {name}")
-            for line in extra["tolerance_advice"]:
+            for line in y.advice:
                 typer.echo(f"  tighter tolerance: {line}")
-    if not analysis.converged:
+    if not result.converged:
         typer.echo("stagesynth: the DC operating point did not converge at some corner", err=True)
         raise typer.Exit(1)
-    if verdict is not None and not verdict.meets_spec:
+    if result.meets_spec is False:
         raise typer.Exit(1)
 
 
@@ -159,44 +147,29 @@ def design(
         typer.Option("--circuit", metavar="NAME",
                      help="Force a circuit family (default: the simplest that meets the spec)."),
     ] = None,
+    pulse_width: Annotated[
+        str | None, typer.Option("--pulse-width", metavar="T", help=PULSE_HELP)
+    ] = None,
 ) -> None:
     """Synthesize a stage that meets SPEC.toml; write design.json and the report to DIR."""
+    from . import api
     from .fileio import OutputDir
-    from .spec import load_spec
-    from .synth import synthesize
 
-    if prefer not in ("margin", "current"):
+    if prefer not in api.PREFER:
         raise StageError(f"--prefer {prefer!r} is not a choice", key="--prefer",
-                         accepted="margin, current")
-    spec = load_spec(spec_file)
+                         accepted=", ".join(api.PREFER))
+    width = _pulse_width(pulse_width)
+    spec = api.load_spec(spec_file)
     outdir = OutputDir(out, force=force)
-    names = ["design.json"] + ([] if no_report else _report_names())
-    outdir.check(names)  # refuse before any work is written
+    outdir.check(["design.json"] + ([] if no_report else api.report_files()))  # before any work
     if circuit is not None:
         from .topologies import FAMILIES
 
         if circuit not in FAMILIES:
             raise StageError(f"{circuit!r} is not a circuit family", key="--circuit",
                              accepted=", ".join(FAMILIES))
-    result = synthesize(spec, prefer=prefer, circuit=circuit)
-    from dataclasses import replace
-
-    from .report.bom import capacitor_stress
-    from .report.poles import pole_zero_map, poles_zeros_dict
-    from .stability import robustness
-
-    pz_map = pole_zero_map(result.analysis)
-    pz = poles_zeros_dict(pz_map)
-    caps_info = {p.ref: capacitor_stress(result.design, result.analysis, p)
-                 for p in result.design.parts if p.kind == "capacitor"}
-    final = replace(result.design, extra={**result.design.extra, "poles_zeros": pz,
-                                          "capacitors": caps_info,
-                                          "robustness": robustness(result.analysis)})
-    outdir.write_text("design.json", final.to_json())
-    written = [out / "design.json"]
-    if not no_report:
-        written += _write_report(outdir, final, result.analysis, result.verdict, spec,
-                                 list(result.notes), pz_map)
+    result = api.synthesize(spec, circuit=circuit, prefer=prefer)
+    written = api.write_report(result, outdir, pulse_width=width, report=not no_report)
     from .textout import analysis_table
 
     typer.echo(analysis_table(result.analysis, result.verdict))
@@ -221,23 +194,6 @@ def design(
     raise typer.Exit(1)
 
 
-def _report_names() -> list[str]:
-    try:
-        from .report.bundle import BUNDLE_FILES
-    except ImportError:  # report package not installed in this build
-        return []
-    return list(BUNDLE_FILES)
-
-
-def _write_report(outdir, design, analysis, verdict, spec, notes, pz=None) -> list[Path]:
-    try:
-        from .report.bundle import write_bundle
-    except ImportError:
-        return []
-    return list(write_bundle(outdir, design, analysis, verdict=verdict, spec=spec, notes=notes,
-                             pz=pz))
-
-
 @app.command()
 @user_errors
 def caps(
@@ -257,76 +213,32 @@ def caps(
     ] = False,
 ) -> None:
     """Re-size the coupling and bypass capacitors of a design for a new low corner."""
-    from dataclasses import replace
-
-    from .analysis import Environment
-    from .analysis import analyze as run_analysis
-    from .capsizing import size_capacitors
+    from . import api
     from .fileio import OutputDir
-    from .results import predicted_block
+    from .textout import fmt
     from .units import parse_quantity
 
     target = parse_quantity(f_low, "Hz", key="--f-low")
     if target <= 0:
         raise StageError("must be positive", key="--f-low", accepted='e.g. "5 Hz"')
-    d, spec_obj = _inputs(design_file, spec)
-    env = Environment.for_design(d, spec_obj)
-    f_high = env.band[1] if env.band else run_analysis(d).f_high
-    if not math.isfinite(f_high):
-        # no upper corner (the gain never falls): judge well above the new low corner
-        f_high = 1e4 * target
-    if target >= f_high:
-        raise StageError(f"{target:g} Hz is not below the high corner {f_high:g} Hz",
-                         key="--f-low", accepted="a frequency below f_high")
-    env = replace(env, band=(target, f_high))
-    recorded = d.extra.get("synthesis", {}) if isinstance(d.extra.get("synthesis"), dict) else {}
-    if spec_obj is not None:
-        series, tol = spec_obj.parts.capacitors, spec_obj.parts.capacitor_tolerance
-    else:  # what the design was made with, else the spec format's defaults
-        series = recorded.get("capacitor_series", "E6")
-        tol = float(recorded.get("capacitor_tolerance", 0.1))
-    before = run_analysis(d, environment=env)
-    sizing = size_capacitors(d, target, env=env, series=series, tolerance=tol,
-                             z_out_max=spec_obj.require.z_out if spec_obj else None)
-    new = replace(sizing.design, band=(target, f_high))
-    after = run_analysis(new, environment=env)
-    new = replace(new, predicted={**dict(d.predicted), **predicted_block(after)})
+    d = api.load_design(design_file)
+    spec_obj = api.load_spec(spec) if spec is not None else None
+    change = api.resize_capacitors(d, target, spec_obj)
     target_path = out or design_file
     outdir = OutputDir(target_path.parent, force=force)
-    outdir.write_text(target_path.name, new.to_json())
-    from .textout import fmt
-
-    for ref in sizing.share:
-        typer.echo(f"{ref}: {fmt(d.part(ref).value, 'F')} -> {fmt(new.part(ref).value, 'F')}"
-                   f"  (sees {fmt(sizing.shorted_resistance[ref], 'Ω')}, "
-                   f"{100 * sizing.share[ref]:.0f} % of the corner)")
-    typer.echo(f"f_low: {fmt(before.f_low, 'Hz')} -> {fmt(after.f_low, 'Hz')} "
-               f"(worst case with every capacitor {100 * tol:.0f} % low: "
-               f"{fmt(sizing.f_low_worst, 'Hz')}); wrote {target_path}")
-    if spec_obj is not None:
-        from .verdict import judge
-
-        verdict = judge(run_analysis(new, spec_obj), spec_obj)
-        if not verdict.meets_spec:
-            failed = ", ".join(c.name for c in verdict.failed)
-            typer.echo(f"the updated design does not meet {spec}: {failed}", err=True)
-            raise typer.Exit(1)
-    elif after.f_low > target:
+    outdir.write_text(target_path.name, change.design.to_json())
+    for ref, old, new, r_seen, share in change.changes:
+        typer.echo(f"{ref}: {fmt(old, 'F')} -> {fmt(new, 'F')}"
+                   f"  (sees {fmt(r_seen, 'Ω')}, {100 * share:.0f} % of the corner)")
+    typer.echo(f"f_low: {fmt(change.before.f_low, 'Hz')} -> {fmt(change.after.f_low, 'Hz')} "
+               f"(worst case with every capacitor {100 * change.tolerance:.0f} % low: "
+               f"{fmt(change.f_low_worst, 'Hz')}); wrote {target_path}")
+    if change.verdict is not None and not change.verdict.meets_spec:
+        failed = ", ".join(c.name for c in change.verdict.failed)
+        typer.echo(f"the updated design does not meet {spec}: {failed}", err=True)
         raise typer.Exit(1)
-
-
-def _run_monte_carlo(design, spec, units: int, seed: int, *, quiet: bool):
-    """Monte Carlo with a progress bar on stderr for long runs; advice from sensitivities."""
-    from .montecarlo import monte_carlo
-    from .sensitivity import recommendations, spreads
-
-    if units >= 5000 and not quiet:
-        with typer.progressbar(length=units, label="Monte Carlo", file=sys.stderr) as bar:
-            est = monte_carlo(design, spec, units, seed=seed, progress=bar.update)
-    else:
-        est = monte_carlo(design, spec, units, seed=seed)
-    recs = recommendations(spreads(design, spec), spec, tuple(est.failures))
-    return est, recs
+    if not change.meets:
+        raise typer.Exit(1)
 
 
 @app.command()
@@ -340,23 +252,20 @@ def report(
     force: Annotated[
         bool, typer.Option("--force", help="Replace files in DIR that stagesynth did not write.")
     ] = False,
+    pulse_width: Annotated[
+        str | None, typer.Option("--pulse-width", metavar="T", help=PULSE_HELP)
+    ] = None,
 ) -> None:
     """Write the report, plots, schematic, parts list and Touchstone file for a design."""
-    from .analysis import analyze as run_analysis
-    from .fileio import OutputDir
+    from . import api
 
-    d, spec_obj = _inputs(design_file, spec)
-    verdict = None
-    analysis = run_analysis(d, spec_obj)
-    if spec_obj is not None:
-        from .verdict import judge
-
-        verdict = judge(analysis, spec_obj)
-    notes = list(d.extra.get("synthesis", {}).get("notes", [])) or None
-    outdir = OutputDir(out, force=force)
-    written = _write_report(outdir, d, analysis, verdict, spec_obj, notes)
+    width = _pulse_width(pulse_width)
+    d = api.load_design(design_file)
+    spec_obj = api.load_spec(spec) if spec is not None else None
+    result = api.analyze(d, spec_obj, units=0)
+    written = api.write_report(result, out, force=force, pulse_width=width)
     typer.echo(f"wrote {', '.join(str(p) for p in written)}")
-    if verdict is not None and not verdict.meets_spec:
+    if result.meets_spec is False:
         raise typer.Exit(1)
 
 
@@ -376,14 +285,15 @@ def plot(
     ] = False,
 ) -> None:
     """Redraw the Bode and impedance plots of a design (after editing a value)."""
-    from .analysis import analyze as run_analysis
+    from . import api
     from .fileio import OutputDir
     from .report.bundle import write_plots
 
-    d, spec_obj = _inputs(design_file, spec)
-    analysis = run_analysis(d, spec_obj)
+    d = api.load_design(design_file)
+    spec_obj = api.load_spec(spec) if spec is not None else None
+    result = api.analyze(d, spec_obj, units=0)
     outdir = OutputDir(out or design_file.parent, force=force)
-    written = write_plots(outdir, d, analysis, spec_obj)
+    written = write_plots(outdir, d, result.analysis, spec_obj)
     typer.echo(f"wrote {', '.join(str(p) for p in written)}")
 
 

@@ -121,6 +121,31 @@ class Design:
         )
         return replace(self, parts=parts)
 
+    def with_value(self, ref: str, value: float | str) -> Design:
+        """A what-if copy with one resistor or capacitor changed ("4k7", "4.7 kΩ" or SI).
+
+        Figures computed for the old values (predicted, pole/zero map, capacitor stress,
+        robustness) are dropped from the copy: re-analyse it for new ones.
+        """
+        from .units import parse_quantity
+
+        try:
+            part = self.part(ref)
+        except KeyError:
+            raise StageError(f"no part named {ref!r}", key="ref", accepted=", ".join(
+                p.ref for p in self.parts if not p.is_bjt)) from None
+        if part.is_bjt or part.kind not in ("resistor", "capacitor"):
+            raise StageError(f"{ref} is a {part.kind}; only resistors and capacitors take a "
+                             "value", key=ref, accepted="a resistor or capacitor reference")
+        unit = "Ω" if part.kind == "resistor" else "F"
+        v = parse_quantity(value, unit, key=ref)
+        if not (v > 0 and math.isfinite(v)):
+            raise StageError(f"{value!r} is not a positive {part.kind} value", key=ref,
+                             accepted="e.g. '4k7', '4.7 kΩ', '100 nF' or a positive number")
+        extra = {k: x for k, x in self.extra.items()
+                 if k not in ("poles_zeros", "capacitors", "robustness")}
+        return replace(self.with_values({ref: v}), predicted={}, extra=extra)
+
     def shorted(self, ref: str) -> Design:
         """A copy with two-terminal part `ref` replaced by a wire (its nodes merged).
 

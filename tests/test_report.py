@@ -36,7 +36,26 @@ from stagesynth.report.plots import bode_data, bode_figure
 from stagesynth.spec import Load, Parts, Requirements, Source, Spec, Supply
 from stagesynth.verdict import judge
 
-CHROMIUM = "/usr/bin/chromium"
+CHROMIUM_NAMES = ("chromium", "chromium-browser", "google-chrome", "chrome")
+
+
+def chromium() -> str:
+    """Path of a headless-capable Chromium; skip when none is installed, unless CI is set.
+
+    On a fresh machine the README's test command must pass without a browser; CI
+    (.ci/run installs the Debian package `chromium` and sets CI) must not skip.
+    """
+    import os
+
+    for name in CHROMIUM_NAMES:
+        path = shutil.which(name)
+        if path:
+            return path
+    message = ("no headless Chromium found (looked for " + ", ".join(CHROMIUM_NAMES)
+               + "); install the Debian package `chromium` to render report.html")
+    if os.environ.get("CI"):
+        pytest.fail(f"CI is set, so the HTML render test is required: {message}")
+    pytest.skip(message)
 
 # Our own scenario: a hydrophone front end, NPN common emitter with a split emitter resistor.
 DESIGN = {
@@ -264,13 +283,13 @@ def test_html_renders_in_headless_chromium(bundle):
     """Chromium renders report.html offline into a screenshot that is mostly drawn, not blank."""
     import matplotlib.image as mpimg
 
-    assert Path(CHROMIUM).exists()
+    browser = chromium()
     root, _ = bundle
     shot = root / "shot.png"
     profile = tempfile.mkdtemp(prefix="chromium-")
     try:
         subprocess.run(
-            [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+            [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
              "--no-first-run", "--disable-background-networking", "--disable-component-update",
              "--disable-sync", f"--user-data-dir={profile}", f"--screenshot={shot}",
              "--window-size=1200,3000", (root / "report.html").as_uri()],

@@ -20,7 +20,7 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
 
 PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg")
 BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
-                "stage.s2p", "histograms.svg")
+                "stage.s2p", "histograms.svg", "pulse.svg")
 
 
 def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
@@ -52,10 +52,12 @@ def write_bundle(
     spec: Spec | None = None,
     notes: Sequence[str] | None = None,
     pz=None,
+    pulse=None,
 ) -> list[Path]:
     """Every report file of BUNDLE_FILES, written into `out`; returns their paths.
 
-    `pz`: the pole/zero map when the caller has it already (it is not computed twice).
+    `pz`: the pole/zero map when the caller has it already (it is not computed twice);
+    `pulse`: the pulse response to show (default: the engine's, default pulse width).
     """
     from .bom import bom_csv, bom_rows
     from .document import report_html, report_markdown, schematic_svg
@@ -82,11 +84,30 @@ def write_bundle(
         svgs["histograms"] = contents["histograms.svg"].decode("utf-8")
     else:
         names.remove("histograms.svg")
+    pulse = pulse if pulse is not None else _default_pulse(analysis)
+    contents["pulse.svg"] = _pulse_svg(pulse)
+    svgs["pulse"] = contents["pulse.svg"].decode("utf-8")
     contents["schematic.svg"] = svgs["schematic"].encode("utf-8")
     contents["bom.csv"] = bom_csv(design, analysis, spec, rows=rows).encode("utf-8")
     contents["stage.s2p"] = touchstone_text(stage_network(design, analysis)).encode("latin-1")
     contents["report.md"] = report_markdown(design, analysis, verdict, spec, notes, bom=rows,
-                                            pz=pz, robustness=rob).encode("utf-8")
+                                            pz=pz, robustness=rob, pulse=pulse).encode("utf-8")
     contents["report.html"] = report_html(design, analysis, verdict, spec, notes, svgs=svgs,
-                                          bom=rows, pz=pz, robustness=rob).encode("utf-8")
+                                          bom=rows, pz=pz, robustness=rob,
+                                          pulse=pulse).encode("utf-8")
     return [out.write_bytes(name, contents[name]) for name in names]
+
+
+def _default_pulse(analysis: Analysis):
+    """The engine's pulse response at its default width."""
+    from ..pulse import pulse_response
+
+    return pulse_response(analysis)
+
+
+def _pulse_svg(pulse) -> bytes:
+    """pulse.svg: the step edge and the pulse, as the engine computed them."""
+    from .plots import figure_svg
+    from .pulseview import pulse_figure
+
+    return figure_svg(pulse_figure(pulse))

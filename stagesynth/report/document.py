@@ -26,7 +26,7 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
     from .poles import PoleZeroMap
 
 FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg",
-                "histograms": "histograms.svg"}
+                "histograms": "histograms.svg", "pulse": "pulse.svg"}
 
 SAFETY = (
     "Check every voltage and power rating with margin against the worst case in this "
@@ -210,6 +210,7 @@ def build_document(
     bom: Sequence[Mapping[str, str]] | None = None,
     pz: PoleZeroMap | None = None,
     robustness=None,
+    pulse=None,
 ) -> Document:
     """The report's content, independent of the output format."""
     from .. import __version__
@@ -270,6 +271,10 @@ def build_document(
         "DC node voltages (to ground):",
         volts,
     )))
+    if pulse is not None:  # read before the Bode plot by sensor and ultrasonic users
+        from .pulseview import pulse_section
+
+        sections.append(pulse_section(pulse))
     bode_caption = "Gain magnitude and phase of the nominal stage, from the AC analysis. "
     if spec is not None:
         bode_caption += ("Hatched areas are outside the spec: above the gain window across "
