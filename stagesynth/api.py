@@ -52,6 +52,7 @@ class YieldResult:
     raw: YieldEstimate = field(repr=False)  # per-unit figures, for histograms
 
     def to_dict(self) -> dict[str, Any]:
+        """Estimate, interval, units, seed, failures by requirement and advice."""
         return {**self.raw.to_dict(), "advice": list(self.advice)}
 
 
@@ -72,6 +73,7 @@ class Assessment:
 
     @property
     def converged(self) -> bool:
+        """The DC operating point converged at nominal and every corner."""
         return self.analysis.converged
 
     def to_dict(self) -> dict[str, Any]:
@@ -104,9 +106,11 @@ class Result:
 
     @property
     def meets_spec(self) -> bool:
+        """Every requirement passes (the closest design is returned when none can)."""
         return self.verdict.meets_spec
 
     def to_dict(self) -> dict[str, Any]:
+        """Design file, analysis with verdict, rationale, conflicts and families tried."""
         from .netlist import _clean_floats
         from .results import analysis_to_dict
 
@@ -141,6 +145,7 @@ class CapacitorChange:
         return self.after.f_low <= self.target
 
     def to_dict(self) -> dict[str, Any]:
+        """Old and new values, the corner before and after, and the verdict."""
         return {"target": self.target, "f_low_before": self.before.f_low,
                 "f_low_after": self.after.f_low, "f_low_worst": self.f_low_worst,
                 "changes": [{"ref": r, "old": o, "new": n, "resistance_seen": rs, "share": s}

@@ -95,6 +95,10 @@ class Spec:
     title: str = ""
     path: str = ""  # the file it was read from, for messages
 
+    def to_dict(self) -> dict[str, Any]:
+        """The spec as the dict of its TOML file (load_spec accepts it back)."""
+        return tomllib.loads(spec_to_toml(self))
+
 
 # ---------------------------------------------------------------------------
 # Loading and validation (section 1 of the contract)

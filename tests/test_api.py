@@ -84,6 +84,10 @@ def test_dict_spec_and_to_dict_are_plain_json(tmp_path):
                     "f_high": "50 kHz", "swing": "2 Vpp"},
         "transistor": {"preset": "generic-npn"},
     })
+    from dataclasses import replace
+
+    again = ss.load_spec(json.loads(json.dumps(spec.to_dict())))  # the TOML dict, round trip
+    assert replace(again, path="") == replace(spec, path="")
     d = fixtures.npn_ce()
     check = ss.analyze(d, spec, units=200, seed=3)
     data = json.loads(json.dumps(check.to_dict()))
