@@ -131,3 +131,24 @@ def test_worked_example_runs_end_to_end(tmp_path):
     edit = next(line for line in lines if "-> 4.7 kΩ" in line)
     gains = [float(x) for x in edit.replace("(was", "").split("gain ")[1].split(" dB")[:2]]
     assert math.isfinite(gains[0]) and gains[0] != gains[1]
+
+
+def test_cli_report_takes_a_pulse_width(tmp_path):
+    """`stagesynth report --pulse-width "2 ms"` shows that pulse; "2 kHz" is refused with
+    exit code 2 and one line naming the option (contract section 4)."""
+    from typer.testing import CliRunner
+
+    from stagesynth.cli import app
+
+    design = tmp_path / "design.json"
+    design.write_text(fixtures.npn_ce().to_json(), encoding="utf-8")
+    runner = CliRunner()
+    ok = runner.invoke(app, ["report", str(design), "--out", str(tmp_path / "r"),
+                             "--pulse-width", "2 ms"])
+    assert ok.exit_code == 0, ok.output
+    assert "tilt of a 2 ms pulse" in (tmp_path / "r" / "report.md").read_text()
+    bad = runner.invoke(app, ["report", str(design), "--out", str(tmp_path / "s"),
+                              "--pulse-width", "2 kHz"])
+    assert bad.exit_code == 2
+    assert "--pulse-width" in bad.output and "Traceback" not in bad.output
+    assert not (tmp_path / "s").exists()

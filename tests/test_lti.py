@@ -166,3 +166,18 @@ def test_corner_condition_moves_the_gain(cases):
     assert all(abs(20 * math.log10(x / g0)) < 3.0 for x in g)
     with pytest.raises(ss.StageError):
         ss.to_lti(a, condition="no such corner")
+
+
+@pytest.mark.parametrize("name", ["npn_ce", "ce_follower", "pnp_ce"])
+def test_short_pulse_tilt_is_the_sum_of_the_low_roots(name, cases):
+    """For a pulse short against every low time constant, tilt ≈ T·(Σ|p| − Σ|z|) over the
+    low-frequency poles and zeros (rad/s): the tilts of the coupling and bypass networks
+    add (Millman & Halkias, *Integrated Electronics*, pulse response of an RC-coupled
+    stage, from memory; it is the initial slope lim s·(H(s) − 1) of a step's top)."""
+    a, _, pz = cases[name]
+    lows_p = [p.magnitude for p in pz.low_poles()]
+    lows_z = [z.magnitude for z in pz.zeros if z.magnitude < pz.midband]
+    rate = 2 * math.pi * (sum(lows_p) - sum(lows_z))
+    width = 1e-3 / (2 * math.pi * max(lows_p))
+    p = ss.pulse_response(a, width)
+    assert p.tilt == pytest.approx(rate * width, rel=2e-3)  # second-order term ~ T·p/2

@@ -71,28 +71,16 @@ class PoleZeroMap:
         return all(p.freq.real < 0 for p in self.poles)
 
 
-def _loaded_pencil(system: AcSystem) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, int]:
-    """(G, C, B0, B1, out) of the loaded stage: (G + sC) v = (B0 + s B1) u, y = v[out].
+def _loaded_pencil(system: AcSystem) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray,
+                                              np.ndarray]:
+    """(G, C, b0, b1, e_out) of the loaded stage: (G + sC) v = (b0 + s b1) u, y = e_out·v.
 
-    With a source resistance the input node stays an unknown fed by u/Rs; an ideal
-    source (Rs = 0) fixes it, so its column moves to the right-hand side.
+    The same stamping as the state-space form (lti.loaded_descriptor), so the roots here
+    and python-control's of `to_lti` are those of one system.
     """
-    c = system.circuit
-    g = system.G[0].copy()
-    cap = system.C[0].copy()
-    rs = float(system.source_resistance[0])
-    g[c.output, c.output] += 1.0 / float(system.load_resistance[0])
-    cap[c.output, c.output] += float(system.load_capacitance[0])
-    n = c.n
-    if rs > 0:
-        g[c.input, c.input] += 1.0 / rs
-        b0 = np.zeros(n)
-        b0[c.input] = 1.0 / rs
-        return g, cap, b0, np.zeros(n), c.output
-    keep = np.array([k for k in range(n) if k != c.input])
-    out = int(np.flatnonzero(keep == c.output)[0])
-    return (g[np.ix_(keep, keep)], cap[np.ix_(keep, keep)], -g[keep, c.input],
-            -cap[keep, c.input], out)
+    from ..lti import loaded_descriptor
+
+    return loaded_descriptor(system, 0)
 
 
 def _finite_eigs(a: np.ndarray, e: np.ndarray, w0: float) -> np.ndarray:
@@ -145,7 +133,7 @@ def pole_zero_map(analysis: Analysis) -> PoleZeroMap:
     e = np.zeros((n + 1, n + 1))
     a[:n, :n], e[:n, :n] = g, cap
     a[:n, n], e[:n, n] = -b0, -b1
-    a[n, out] = 1.0
+    a[n, :n] = out
     zeros = _clean(_finite_eigs(a, e, w0), w0)
     return PoleZeroMap(_roots(poles, analysis.midband), _roots(zeros, analysis.midband),
                        analysis.midband)
