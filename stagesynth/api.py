@@ -294,6 +294,7 @@ def write_report(result_or_design: Result | Assessment | Design | str | Path,
     from .fileio import OutputDir
 
     obj = result_or_design
+    _check_width(pulse_width)
     out = out_dir if isinstance(out_dir, OutputDir) else OutputDir(Path(out_dir), force=force)
     names = (["design.json"] if isinstance(obj, Result) else []) + (
         report_files() if report else [])
@@ -315,7 +316,12 @@ def write_report(result_or_design: Result | Assessment | Design | str | Path,
     if report:
         from .report.bundle import write_bundle
 
-        pulse = pulse_response(analysis, pulse_width)
+        pulse = None
+        if pulse_width is not None:
+            try:
+                pulse = pulse_response(analysis, pulse_width)
+            except StageError:  # unstable: no pulse response, the report goes without it
+                pulse = None
         written += write_bundle(out, design, analysis, verdict=verdict, spec=spec_obj,
                                 notes=notes or None, pz=pz, pulse=pulse)
     return tuple(written)
@@ -439,13 +445,20 @@ def to_network(design: Any, spec: Any = None, *, f_start: float | None = None,
     return stage_network(analysis.design, analysis, f_start, f_stop, points)
 
 
+def _check_width(width: Any) -> None:
+    if width is not None and not (isinstance(width, (int, float)) and width > 0
+                                  and math.isfinite(width)):
+        raise StageError(f"{width!r} is not a pulse width", key="--pulse-width",
+                         accepted='a positive time in seconds, e.g. 1e-4')
+
+
 def pulse_response(design: Any, width: float | None = None, spec: Any = None
                    ) -> PulseResponse:
     """Step edge (rise, overshoot, settling) and pulse tilt at the load (python-control)."""
     from .pulse import pulse_response as _pulse
 
-    if width is not None and not (isinstance(width, (int, float)) and width > 0
-                                  and math.isfinite(width)):
-        raise StageError(f"{width!r} is not a pulse width", key="--pulse-width",
-                         accepted='a positive time, e.g. "100 µs"')
-    return _pulse(_analysis_of(design, spec), width)
+    _check_width(width)
+    try:
+        return _pulse(_analysis_of(design, spec), width)
+    except ValueError as exc:  # unstable, or no midband gain: nothing to describe
+        raise StageError(str(exc), key="pulse response") from None

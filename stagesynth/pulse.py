@@ -144,6 +144,9 @@ def pulse_response(analysis: Analysis, width: float | None = None,
     if not (width > 0 and math.isfinite(width)):
         raise ValueError(f"pulse width must be a positive time, got {width!r}")
     m = state_space(system if system is not None else analysis.system)
+    if m.A.shape[0] and np.max(np.linalg.eigvals(m.A).real) > 0:
+        raise ValueError("the stage is unstable (a pole in the right half-plane): its pulse "
+                         "response grows without bound")
     slow, fast = split_modes(m, 2.0 * math.pi * analysis.midband)
     top = _dc_gain(fast)
     if top == 0.0:

@@ -110,6 +110,10 @@ def test_report_from_a_design(tmp_path):
     with pytest.raises(OutputExistsError):
         ss.write_report(d, tmp_path)
     assert (tmp_path / "report.md").read_text() == "mine"
+    for width in (0.0, -1e-3, math.inf):
+        with pytest.raises(ss.StageError):
+            ss.write_report(d, tmp_path / "w", pulse_width=width)
+    assert not (tmp_path / "w").exists()
     paths = ss.write_report(d, tmp_path / "r", pulse_width=2e-3)
     names = {p.name for p in paths}
     assert {"report.html", "report.md", "pulse.svg", "stage.s2p"} <= names

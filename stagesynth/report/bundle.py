@@ -11,6 +11,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+import numpy as np
+
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from ..analysis import Analysis
     from ..fileio import OutputDir
@@ -85,8 +87,11 @@ def write_bundle(
     else:
         names.remove("histograms.svg")
     pulse = pulse if pulse is not None else _default_pulse(analysis)
-    contents["pulse.svg"] = _pulse_svg(pulse)
-    svgs["pulse"] = contents["pulse.svg"].decode("utf-8")
+    if pulse is not None:
+        contents["pulse.svg"] = _pulse_svg(pulse)
+        svgs["pulse"] = contents["pulse.svg"].decode("utf-8")
+    else:
+        names.remove("pulse.svg")
     contents["schematic.svg"] = svgs["schematic"].encode("utf-8")
     contents["bom.csv"] = bom_csv(design, analysis, spec, rows=rows).encode("utf-8")
     contents["stage.s2p"] = touchstone_text(stage_network(design, analysis)).encode("latin-1")
@@ -99,10 +104,14 @@ def write_bundle(
 
 
 def _default_pulse(analysis: Analysis):
-    """The engine's pulse response at its default width."""
+    """The engine's pulse response at its default width; None where there is none to show
+    (an unstable stage, or one with no midband gain)."""
     from ..pulse import pulse_response
 
-    return pulse_response(analysis)
+    try:
+        return pulse_response(analysis)
+    except (ValueError, np.linalg.LinAlgError):
+        return None
 
 
 def _pulse_svg(pulse) -> bytes:
