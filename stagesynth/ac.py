@@ -141,26 +141,41 @@ class AcSystem:
         return h_mid, lows, highs
 
     def corners_near(
-        self, midband: np.ndarray, guess_low: float, guess_high: float
+        self,
+        midband: np.ndarray,
+        guess_low: np.ndarray | float,
+        guess_high: np.ndarray | float,
+        *,
+        which: str = "both",
     ) -> tuple[np.ndarray, np.ndarray]:
-        """(f_low, f_high) for members expected near known corners (a Monte Carlo).
+        """(f_low, f_high) for members expected near known corners (a Monte Carlo, the
+        corners of a design whose nominal corners are known).
 
-        Brackets a factor of two either side of the guess and refines by the Illinois
-        variant of false position in log f; members whose bracket does not hold fall
-        back to the full outward search, so the result is the same corner either way.
+        Guesses are scalars or one per member. Brackets a factor of two either side of
+        the guess and refines by the Illinois variant of false position in log f;
+        members whose bracket does not hold (or whose guess is 0 or infinite) fall back
+        to the full outward search, so the result is the same corner either way.
+        `which` = "low" or "high" skips the other search (its result is nan).
         """
         fm = np.asarray(midband, dtype=float).reshape(self.batch)
         target = np.abs(self.gain(fm[:, None]))[:, 0] * DB3
         out = []
         for guess, side in ((guess_low, -1.0), (guess_high, 1.0)):
-            if not (np.isfinite(guess) and guess > 0):
-                out.append(self.corners(fm, which="low" if side < 0 else "high")[1 + (side > 0)])
+            if which != "both" and which != ("low" if side < 0 else "high"):
+                out.append(np.full(self.batch, np.nan))
                 continue
-            lf = np.log10(fm)
-            lg_in = np.full(self.batch, np.log10(guess) - side * 0.3)
-            lg_in = np.minimum(lg_in, lf) if side < 0 else np.maximum(lg_in, lf)
-            lg_out = np.full(self.batch, np.log10(guess) + side * 0.3)
-            found = self._illinois(lg_in, lg_out, target)
+            g = np.broadcast_to(np.asarray(guess, dtype=float), (self.batch,))
+            usable = np.isfinite(g) & (g > 0)
+            found = np.full(self.batch, np.nan)
+            if np.any(usable):
+                lg = np.log10(np.where(usable, g, 1.0))
+                lf = np.log10(fm)
+                lg_in = lg - side * 0.3
+                lg_in = np.minimum(lg_in, lf) if side < 0 else np.maximum(lg_in, lf)
+                lg_out = lg + side * 0.3
+                idx = np.flatnonzero(usable)
+                sub = self if idx.size == self.batch else self.subset(idx)
+                found[idx] = sub._illinois(lg_in[idx], lg_out[idx], target[idx])
             bad = np.isnan(found)
             if np.any(bad):
                 idx = np.flatnonzero(bad)
@@ -231,6 +246,10 @@ class AcSystem:
         reaches zero at cutoff.
         """
         v = self.node_voltages(np.asarray(freq, dtype=float).reshape(self.batch, 1))[:, 0, :]
+        return self.swing_ratios_of(v)
+
+    def swing_ratios_of(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """`swing_ratios` from node voltages (B, n) already solved at one frequency."""
         v_load = np.abs(v[:, self.circuit.output])
         v_ext = np.concatenate([v, np.zeros((self.batch, 2), dtype=complex)], axis=1)
         ic = np.empty(self.gm.shape)

@@ -82,7 +82,8 @@ class TransistorState:
 
 @dataclass(frozen=True)
 class PointResult:
-    """A design at one condition: DC state and the output swing it allows."""
+    """A design at one condition: DC state, the output swing it allows, and its midband
+    gain, -3 dB corners and impedances (every requirement is judged at every condition)."""
 
     condition: Condition
     converged: bool
@@ -92,6 +93,19 @@ class PointResult:
     supply_current: float
     transistors: Mapping[str, TransistorState]
     node_voltages: Mapping[str, float]
+    gain: complex = complex("nan")  # v_load / v_emf at midband, this condition
+    f_low: float = math.nan
+    f_high: float = math.nan
+    z_in: float = math.nan
+    z_out: float = math.nan
+
+    @property
+    def gain_db(self) -> float:
+        return 20.0 * math.log10(max(abs(self.gain), 1e-300))
+
+    @property
+    def inverting(self) -> bool:
+        return math.cos(np.angle(self.gain)) < 0.0
 
 
 @dataclass(frozen=True)
@@ -231,6 +245,11 @@ def point_results(
                 node_voltages={
                     n: float(dc.v[i, c]) for c, n in enumerate(names) if not n.endswith(".b'")
                 },
+                gain=complex(fig.gain[k, j]),
+                f_low=float(fig.f_low[k, j]),
+                f_high=float(fig.f_high[k, j]),
+                z_in=float(fig.z_in[k, j]),
+                z_out=float(fig.z_out[k, j]),
             )
         )
     return results
@@ -257,11 +276,11 @@ def analyze(design: Design, spec=None, environment: Environment | None = None) -
         design=design,
         environment=env,
         midband=float(fig.midband[0]),
-        gain=complex(fig.gain[0]),
-        f_low=float(fig.f_low[0]),
-        f_high=float(fig.f_high[0]),
-        z_in=float(fig.z_in[0]),
-        z_out=float(fig.z_out[0]),
+        gain=complex(fig.gain[0, 0]),
+        f_low=float(fig.f_low[0, 0]),
+        f_high=float(fig.f_high[0, 0]),
+        z_in=float(fig.z_in[0, 0]),
+        z_out=float(fig.z_out[0, 0]),
         nominal=points[0],
         corners=tuple(points[1:]),
         system=fig.nominal,

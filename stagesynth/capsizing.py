@@ -32,8 +32,8 @@ class CapSizing:
     design: Design
     shorted_resistance: dict[str, float]  # ohm seen by each capacitor, others shorted
     share: dict[str, float]  # fraction of the corner allocated to each
-    f_low_nominal: float
-    f_low_worst: float  # every capacitor at -tolerance
+    f_low_nominal: float  # nominal capacitor values, worst condition
+    f_low_worst: float  # every capacitor at -tolerance, worst condition
     target: float
     notes: tuple[str, ...]
 
@@ -94,13 +94,14 @@ def size_capacitors(
     tolerance: float = 0.1,
     z_out_max: float | None = None,
 ) -> CapSizing:
-    """Capacitor values (from `series`) so that f_low holds with every capacitor at -tolerance.
+    """Capacitor values (from `series`) so that f_low holds with every capacitor at -tolerance,
+    at nominal and at every corner of `env`.
 
     With `z_out_max`, the capacitors in the output path are also made large enough that
     their reactance at midband keeps the output impedance within it.
     """
     circuit = compile_design(design)
-    conds = condition_arrays(circuit, corner_conditions(design, env)[:1])
+    conds = condition_arrays(circuit, corner_conditions(design, env))  # nominal + corners
     r, c = batch_values(design, circuit)
     refs = [ref for ref, _, _ in circuit.capacitors]
     fig = evaluate(circuit, r, c, conds, source_resistance=design.source_resistance,
@@ -122,8 +123,10 @@ def size_capacitors(
                      load_resistance=design.load_resistance,
                      load_capacitance=design.load_capacitance, band=env.band,
                      corners="low")
-        zcache[cap_sets.tobytes()] = f.z_out[k:]  # output impedance with the low capacitors
-        return f.f_low[:k], f.f_low[k:]
+        # worst over nominal and every corner (contract section 2, second release)
+        zcache[cap_sets.tobytes()] = np.max(f.z_out[k:], axis=1)  # with the low capacitors
+        f_low = np.max(f.f_low, axis=1)
+        return f_low[:k], f_low[k:]
 
     # uniform scaling moves every low-frequency time constant together: refine twice
     for _ in range(2):
@@ -156,8 +159,9 @@ def size_capacitors(
         f"the corner to {dominant} (it sees the smallest resistance, "
         f"{res[dominant]:.4g} Ω), the rest equally to the others.",
         f"Capacitors then scaled on the exact response and snapped to {series} so that "
-        f"f_low ≤ {target:.4g} Hz even with every capacitor {100 * tolerance:.0f} % low "
-        f"(worst case {worst[pick]:.4g} Hz; nominal {nominal[pick]:.4g} Hz).",
+        f"f_low ≤ {target:.4g} Hz even with every capacitor {100 * tolerance:.0f} % low, "
+        f"at nominal and every corner (worst case {worst[pick]:.4g} Hz; with nominal "
+        f"capacitors {nominal[pick]:.4g} Hz).",
     )
     return CapSizing(sized, res, share, float(nominal[pick]), float(worst[pick]), target,
                      notes)

@@ -119,14 +119,14 @@ def _judge_chunk(design, spec, circuit, sample: Sample, ambients, guess) -> tupl
     def worst(values: np.ndarray, how) -> np.ndarray:
         return how(np.asarray(values, dtype=float).reshape(n, a), axis=1)
 
-    gain = fig.gain_db.reshape(n, a)
+    gain = fig.gain_db[:, 0].reshape(n, a)  # one condition per (unit, ambient) member
     far = np.argmax(np.abs(gain - spec.require.gain_db), axis=1)
     metrics = {
         "gain_db": gain[np.arange(n), far],  # the ambient farther from the target
-        "f_low": worst(fig.f_low, np.max),
-        "f_high": worst(fig.f_high, np.min),
-        "z_in": worst(fig.z_in, np.min),
-        "z_out": worst(fig.z_out, np.max),
+        "f_low": worst(fig.f_low[:, 0], np.max),
+        "f_high": worst(fig.f_high[:, 0], np.min),
+        "z_in": worst(fig.z_in[:, 0], np.min),
+        "z_out": worst(fig.z_out[:, 0], np.max),
         "swing_vpp": worst(fig.swing_vpp[:, 0], np.min),
         "supply_current": worst(fig.supply_current[:, 0], np.max),
     }

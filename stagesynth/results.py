@@ -19,8 +19,15 @@ def _num(x: float) -> float | None:
 
 
 def point_to_dict(p: PointResult) -> dict[str, Any]:
+    """One condition: the section 4 figures for it, its DC state and swing."""
     return {
         "conditions": p.condition.to_dict(),
+        "gain_db": p.gain_db,
+        "inverting": p.inverting,
+        "f_low": _num(p.f_low),
+        "f_high": _num(p.f_high),
+        "z_in": p.z_in,
+        "z_out": p.z_out,
         "converged": p.converged,
         "active": p.active,
         "swing_vpp": p.swing_vpp,

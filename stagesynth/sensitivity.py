@@ -103,10 +103,10 @@ def spreads(design: Design, spec: Spec) -> tuple[FigureSpread, ...]:
                        load_resistance=design.load_resistance,
                        load_capacitance=design.load_capacitance, band=env.band,
                        corner_guess=guess)
-        guess = (float(fig.f_low[0]), float(fig.f_high[0]))
-        vals = {
-            "gain_db": fig.gain_db, "f_low": fig.f_low, "f_high": fig.f_high,
-            "z_in": fig.z_in, "z_out": fig.z_out, "swing_vpp": fig.swing_vpp[:, 0],
+        guess = (float(fig.f_low[0, 0]), float(fig.f_high[0, 0]))
+        vals = {  # one condition per member: column 0
+            "gain_db": fig.gain_db[:, 0], "f_low": fig.f_low[:, 0], "f_high": fig.f_high[:, 0],
+            "z_in": fig.z_in[:, 0], "z_out": fig.z_out[:, 0], "swing_vpp": fig.swing_vpp[:, 0],
             "supply_current": fig.supply_current[:, 0],
         }
         for name, v in vals.items():

@@ -84,10 +84,10 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
         rows = [
             [c.name, check_value(c), check_limit(c),
              f"{100 * c.margin:+.0f} %" if math.isfinite(c.margin) else "",
-             c.where, "pass" if c.ok else "FAIL"]
+             c.condition or c.where, "pass" if c.ok else "FAIL"]
             for c in verdict.checks
         ]
-        out += _table(["requirement", "value", "limit", "margin", "judged at", "result"], rows)
+        out += _table(["requirement", "value", "limit", "margin", "worst at", "result"], rows)
         out.append("")
         if verdict.meets_spec:
             out.append("verdict: meets the spec")

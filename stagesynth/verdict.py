@@ -1,8 +1,9 @@
 """Judge analysed designs against a spec, one row per requirement.
 
-Nominal figures judge gain, corners and impedances; every corner judges the
-active region, swing, supply current and the transistors' absolute ratings
-(section 2 of the contract). The core, `assess`, works on batched Figures so
+Every requirement is judged at nominal and at every corner (section 2 of the
+contract, second release): a row holds the worst value over those conditions
+and the index of the condition that decided it. The transistors' absolute
+ratings are judged at the corners. The core, `assess`, works on batched Figures so
 that `analyze`, the synthesizer and the Monte Carlo share one set of rules.
 Margins are normalized so that requirements can be compared: positive passes,
 0.1 means 10 % of the limit to spare.
@@ -58,30 +59,38 @@ def assess(
 ) -> list[Row]:
     """Every requirement of `spec` for the K value sets in `fig`.
 
-    Condition 0 judges the nominal figures; conditions from `first_corner` on are
-    the corners (a Monte Carlo unit judged at one ambient passes 0: its own
-    condition is both). `ratings=False` leaves out the absolute ratings.
+    Each row takes the worst over condition 0 (nominal) and the conditions from
+    `first_corner` on (the corners; a Monte Carlo unit judged at one ambient passes 0:
+    its own condition is both), and records which condition decided it.
+    `ratings=False` leaves out the absolute ratings.
     """
     r = spec.require
     rows: list[Row] = []
+    judged = _judged(fig.supply_current.shape[1], first_corner)
+    where = WORST_WHERE
     tol = r.gain_tolerance_db
-    gain_db = fig.gain_db
-    err = gain_db - r.gain_db
+    gain_db = fig.gain_db[:, judged]
+    err = np.abs(gain_db - r.gain_db)
+    j = _pick(err, np.argmax)
     rows.append(
-        Row("gain", gain_db, (r.gain_db - tol, r.gain_db + tol), np.abs(err) <= tol,
-            (tol - np.abs(err)) / tol, "within", "dB", "nominal")
+        Row("gain", _take(gain_db, j), (r.gain_db - tol, r.gain_db + tol),
+            _take(err, j) <= tol, (tol - _take(err, j)) / tol, "within", "dB", where,
+            judged[j])
     )
-    rows.append(_at_most("f_low", fig.f_low, r.f_low, "Hz", "nominal"))
-    rows.append(_at_least("f_high", fig.f_high, r.f_high, "Hz", "nominal"))
+    rows.append(_worst_row(_at_most, "f_low", fig.f_low[:, judged], r.f_low, "Hz", judged))
+    rows.append(_worst_row(_at_least, "f_high", fig.f_high[:, judged], r.f_high, "Hz", judged))
     if r.z_in > 0:
-        rows.append(_at_least("z_in", fig.z_in, r.z_in, "Ω", "nominal"))
+        rows.append(_worst_row(_at_least, "z_in", fig.z_in[:, judged], r.z_in, "Ω", judged))
     if r.z_out is not None:
-        rows.append(_at_most("z_out", fig.z_out, r.z_out, "Ω", "nominal"))
+        rows.append(_worst_row(_at_most, "z_out", fig.z_out[:, judged], r.z_out, "Ω", judged))
     if r.inverting != "any":
         want = r.inverting == "yes"
-        ok = fig.inverting == want
-        rows.append(Row("inverting", fig.inverting, r.inverting, ok,
-                        np.where(ok, 1.0, -1.0), "is", "", "nominal"))
+        sense = fig.inverting[:, judged]
+        j = np.argmin(sense == want, axis=1)  # the first condition with the wrong sense
+        value = _take(sense, j)
+        ok = value == want
+        rows.append(Row("inverting", value, r.inverting, ok,
+                        np.where(ok, 1.0, -1.0), "is", "", where, judged[j]))
     corners = slice(first_corner, None)
     active = np.all(fig.active[:, corners], axis=1)
     first_bad = np.argmin(fig.active[:, corners], axis=1) + first_corner
@@ -100,6 +109,31 @@ def assess(
     if ratings:
         rows.extend(_rating_rows(fig, circuit, corners))
     return rows
+
+
+WORST_WHERE = "worst of nominal and every corner"
+
+
+def _judged(m: int, first_corner: int) -> np.ndarray:
+    """Condition indices a requirement is judged at: nominal (0) and the corners."""
+    return np.unique(np.concatenate([[0], np.arange(max(first_corner, 1), m)])).astype(int)
+
+
+def _pick(badness: np.ndarray, how) -> np.ndarray:
+    """(K,) column of the worst condition; a figure not computed (nan) counts as worst."""
+    filled = np.where(np.isnan(badness), np.inf if how is np.argmax else -np.inf, badness)
+    return how(filled, axis=1)
+
+
+def _take(values: np.ndarray, j: np.ndarray) -> np.ndarray:
+    return values[np.arange(values.shape[0]), j]
+
+
+def _worst_row(kind, name: str, values: np.ndarray, limit: float, unit: str,
+               judged: np.ndarray) -> Row:
+    """A bound judged at every condition in `values` (K, C): the worst one decides."""
+    j = _pick(values, np.argmax if kind is _at_most else np.argmin)
+    return kind(name, _take(values, j), limit, unit, WORST_WHERE, judged[j])
 
 
 TJ_MAX_DEFAULT = 150.0  # degC, common practice for small-signal silicon without a figure
@@ -179,6 +213,7 @@ class Check:
     unit: str
     where: str
     detail: str = ""
+    condition: str = ""  # label of the condition that decided the row ("" when none)
 
     def to_dict(self) -> dict:
         limit = list(self.limit) if isinstance(self.limit, tuple) else self.limit
@@ -196,6 +231,7 @@ class Check:
             "unit": self.unit,
             "where": self.where,
             "detail": self.detail,
+            "condition": self.condition,
         }
 
 
@@ -234,8 +270,13 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
         value = row.value[0]
         value = bool(value) if row.relation == "is" else float(value)
         detail = ""
+        label = ""
+        if row.condition is not None and not (row.name == "active" and bool(row.ok[0])):
+            label = points[int(row.condition[0])].condition.label
         if row.name == "gain":
             detail = f"{float(row.value[0]) - spec.require.gain_db:+.2f} dB from target"
+        elif row.where == WORST_WHERE:
+            pass
         elif row.condition is not None:
             p = points[int(row.condition[0])]
             detail = p.condition.label
@@ -257,7 +298,7 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
                 detail = f"allowance derated to {allowed * 1e3:.4g} mW there; " + detail
         checks.append(
             Check(row.name, value, row.limit, bool(row.ok[0]), float(row.margin[0]),
-                  row.relation, row.unit, row.where, detail)
+                  row.relation, row.unit, row.where, detail, label)
         )
     checks.extend(_runaway_checks(analysis))
     return Verdict(tuple(checks))

@@ -226,6 +226,15 @@ def test_corners_agree(runs: Mapping[str, subprocess.CompletedProcess], name: st
         if not (_close(sw, rc.swing_vpp, SWING_REL_TOL)
                 or (rc.swing_vpp == 0 and abs(sw) < 1e-9)):
             bad.append(f"{tag} swing_vpp engine {sw:.5g} reference {rc.swing_vpp:.5g}")
+        # second release: each corner carries its own gain, -3 dB corners and impedances
+        if not abs(_num(ec.get("gain_db")) - rc.gain_db) <= GAIN_DB_TOL:
+            bad.append(f"{tag} gain_db engine {ec.get('gain_db')} reference {rc.gain_db:.4f}")
+        for key, ref_val in (("f_low", rc.f_low), ("f_high", rc.f_high), ("z_in", rc.z_in),
+                             ("z_out", rc.z_out)):
+            ev = ec.get(key)
+            ev = math.inf if ev is None and key == "f_high" else _num(ev)
+            if not (_close(ev, ref_val, REL_TOL) or ev == ref_val):
+                bad.append(f"{tag} {key} engine {ev} reference {ref_val:.6g}")
         trs = ec.get("transistors") or {}
         for ref, t in rc.op.transistors.items():
             et = trs.get(ref) or {}

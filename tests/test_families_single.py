@@ -244,23 +244,27 @@ def _cable(polarity: str) -> dict[str, Any]:
 
 
 def _piezo(polarity: str) -> dict[str, Any]:
-    """Piezo-disc buffer needing 1 MOhm with a part type whose hFE spreads tenfold."""
+    """Piezo-disc buffer needing 470 kOhm with a part type whose hFE spreads tenfold (judged
+    at every corner since the second release: at hFE min, beta*(RE || RL) caps it near
+    0.8 MOhm, so 1 MOhm is out of reach of any follower into this load)."""
     return {"supply": {"voltage": "12 V", "tolerance": "5 %"},
             "source": {"resistance": "10 kΩ"},
             "load": {"resistance": "22 kΩ", "capacitance": "100 pF"},
             "require": {"gain": "-1 dB", "f_low": "10 Hz", "f_high": "50 kHz",
-                        "z_in": "1 MΩ", "swing": "4 Vpp", "inverting": "no",
+                        "z_in": "470 kΩ", "swing": "4 Vpp", "inverting": "no",
                         "ambient": ["0 °C", "50 °C"]},
             "transistor": WIDE_NPN if polarity == "npn" else WIDE_PNP}
 
 
 def _front_end(polarity: str) -> dict[str, Any]:
-    """50-ohm front end of a pulse receiver: common base, z_in at least 40 Ohm."""
+    """50-ohm front end of a pulse receiver: common base, z_in at least 35 Ohm (judged at
+    every corner since the second release: re = VT/IC moves with the ambient and the supply,
+    and 40 Ohm at the coldest, highest-current corner leaves too little current for 1 Vpp)."""
     return {"supply": {"voltage": "12 V", "tolerance": "5 %"},
             "source": {"resistance": "50 Ω"},
             "load": {"resistance": "10 kΩ", "capacitance": "10 pF"},
             "require": {"gain": "20 dB", "f_low": "1 kHz", "f_high": "5 MHz",
-                        "z_in": "40 Ω", "swing": "1 Vpp", "inverting": "no",
+                        "z_in": "35 Ω", "swing": "1 Vpp", "inverting": "no",
                         "ambient": ["0 °C", "50 °C"]},
             "transistor": {"preset": f"generic-{polarity}"}}
 

@@ -114,9 +114,9 @@ def _requirements(verdict: Verdict) -> Table:
     for c in verdict.checks:
         margin = f"{100 * c.margin:+.0f} %" if math.isfinite(c.margin) else ""
         limit = check_limit(c).replace(">=", "≥").replace("<=", "≤")
-        rows.append((c.name, check_value(c), limit, margin, c.where,
+        rows.append((c.name, check_value(c), limit, margin, c.condition or c.where,
                      "pass" if c.ok else "FAIL", c.detail))
-    return Table(("requirement", "value", "limit", "margin", "judged at", "result", "detail"),
+    return Table(("requirement", "value", "limit", "margin", "worst at", "result", "detail"),
                  tuple(rows), numeric=(1, 3), status=5)
 
 

@@ -195,7 +195,7 @@ SPECS: dict[str, dict[str, Any]] = {
     "ef_ideal_ok": _spec("ef_ideal_source", "Sensor buffer", 0.0, {
         "gain_db": 0.0, "f_low": 20.0, "f_high": 1e5, "z_out": 30.0, "swing": 2.0}),
     "dc_coupled_ok": _spec("ce_dc_coupled", "Thermocouple amplifier", 0.05, {
-        "gain_db": 18.0, "gain_tolerance_db": 1.0, "f_low": 0.1, "f_high": 1e5, "z_in": 20e3,
+        "gain_db": 18.0, "gain_tolerance_db": 1.5, "f_low": 0.1, "f_high": 1e5, "z_in": 20e3,
         "swing": 4.0, "ambient": [10.0, 40.0], "inverting": "yes"}),
     "npn_pnp_ok": _spec("ce_npn_pnp", "Photodiode post-amp", 0.05, {
         "gain_db": 19.0, "gain_tolerance_db": 1.5, "f_low": 20.0, "f_high": 1e5, "z_in": 5e3,

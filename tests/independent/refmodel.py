@@ -670,12 +670,20 @@ def corner_conditions(
 
 @dataclass(frozen=True)
 class Corner:
-    """Result at one corner: its operating point, whether all are active, swing (Vpp)."""
+    """Result at one corner: its operating point, whether all are active, swing (Vpp), and
+    (second release: every requirement is judged at every corner) its own midband gain,
+    -3 dB corners and impedances."""
 
     conditions: Conditions
     op: OperatingPoint
     active: bool
     swing_vpp: float
+    gain_db: float = math.nan
+    inverting: bool = False
+    f_low: float = math.nan
+    f_high: float = math.nan
+    z_in: float = math.nan
+    z_out: float = math.nan
 
 
 @dataclass(frozen=True)
@@ -713,7 +721,14 @@ def analyze(
     for cond in corner_conditions(cir, ambient, supply_tolerance):
         op = solve_dc(cir, cond, guess=sys_guess)
         active = all(t.active for t in op.transistors.values())
-        corners.append(Corner(cond, op, active, swing_vpp(cir, op, fm) if active else 0.0))
+        hc = complex(gain(cir, op, [fm])[0])
+        lo_c, hi_c = band_edges(cir, op, fm)
+        corners.append(Corner(
+            cond, op, active, swing_vpp(cir, op, fm) if active else 0.0,
+            gain_db=20.0 * math.log10(max(abs(hc), 1e-300)), inverting=bool(hc.real < 0),
+            f_low=lo_c, f_high=hi_c, z_in=abs(input_impedance(cir, op, fm)),
+            z_out=abs(output_impedance(cir, op, fm)),
+        ))
     return Analysis(
         fm=fm,
         gain=h,
@@ -749,21 +764,28 @@ class Check:
 
 
 def judge(an: Analysis, require: Mapping[str, Any]) -> tuple[bool, tuple[Check, ...]]:
-    """The contract's verdict: nominal figures and every-corner figures against the spec."""
+    """The contract's verdict (second release): gain window, f_low, f_high, z_in, z_out and
+    the sense at nominal AND every corner (the worst decides); swing, supply current and the
+    active region at every corner."""
     checks = []
     tol = float(require.get("gain_tolerance_db", 1.0))
+    every = [an, *an.corners]  # nominal first, then the corners
     if "gain_db" in require:
         g = float(require["gain_db"])
-        checks.append(Check("gain", an.gain_db, g, abs(an.gain_db - g) <= tol))
+        far = max((p.gain_db for p in every), key=lambda x: abs(x - g))
+        checks.append(Check("gain", far, g, abs(far - g) <= tol))
     if "f_low" in require:
-        checks.append(Check("f_low", an.f_low, require["f_low"], an.f_low <= require["f_low"]))
+        worst = max(p.f_low for p in every)
+        checks.append(Check("f_low", worst, require["f_low"], worst <= require["f_low"]))
     if "f_high" in require:
-        checks.append(Check("f_high", an.f_high, require["f_high"],
-                            an.f_high >= require["f_high"]))
+        worst = min(p.f_high for p in every)
+        checks.append(Check("f_high", worst, require["f_high"], worst >= require["f_high"]))
     zin = float(require.get("z_in", 0.0))
-    checks.append(Check("z_in", an.z_in, zin, an.z_in >= zin))
+    worst = min(p.z_in for p in every)
+    checks.append(Check("z_in", worst, zin, worst >= zin))
     if require.get("z_out") is not None:
-        checks.append(Check("z_out", an.z_out, require["z_out"], an.z_out <= require["z_out"]))
+        worst = max(p.z_out for p in every)
+        checks.append(Check("z_out", worst, require["z_out"], worst <= require["z_out"]))
     if "swing" in require:
         checks.append(Check("swing", an.swing_vpp, require["swing"],
                             an.swing_vpp >= require["swing"]))
@@ -775,8 +797,8 @@ def judge(an: Analysis, require: Mapping[str, Any]) -> tuple[bool, tuple[Check, 
                         all(c.active for c in an.corners)))
     inv = str(require.get("inverting", "any"))
     if inv in ("yes", "no"):
-        checks.append(Check("inverting", float(an.inverting), inv,
-                            an.inverting == (inv == "yes")))
+        same = all(p.inverting == (inv == "yes") for p in every)
+        checks.append(Check("inverting", float(an.inverting), inv, same))
     checks = [Check(c.name, float(c.value), c.limit, bool(c.ok)) for c in checks]
     return all(c.ok for c in checks), tuple(checks)
 
