@@ -22,6 +22,7 @@ from .circuit import Circuit, compile_design
 from .eseries import nearest, neighbours
 from .evaluate import evaluate
 from .netlist import Design
+from .units import format_quantity as eng
 
 DOMINANT_SHARE = 0.8  # of the corner's angular frequency, given to the dominant capacitor
 F_LOW_MARGIN = 0.97  # the worst-case corner must land at or below this fraction of the target
@@ -157,11 +158,11 @@ def size_capacitors(
     notes = (
         f"Low corner: short-circuit time constants allocate {100 * share[dominant]:.0f} % of "
         f"the corner to {dominant} (it sees the smallest resistance, "
-        f"{res[dominant]:.4g} Ω), the rest equally to the others.",
+        f"{eng(res[dominant], 'Ω', 4)}), the rest equally to the others.",
         f"Capacitors then scaled on the exact response and snapped to {series} so that "
-        f"f_low ≤ {target:.4g} Hz even with every capacitor {100 * tolerance:.0f} % low, "
-        f"at nominal and every corner (worst case {worst[pick]:.4g} Hz; with nominal "
-        f"capacitors {nominal[pick]:.4g} Hz).",
+        f"f_low ≤ {eng(target, 'Hz', 4)} even with every capacitor {100 * tolerance:.0f} % "
+        f"low, at nominal and every corner (worst case {eng(worst[pick], 'Hz', 4)}; with "
+        f"nominal capacitors {eng(nominal[pick], 'Hz', 4)}).",
     )
     return CapSizing(sized, res, share, float(nominal[pick]), float(worst[pick]), target,
                      notes)

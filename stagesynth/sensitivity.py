@@ -20,6 +20,7 @@ from .circuit import compile_design
 from .evaluate import Conditions, evaluate
 from .netlist import Design
 from .spec import Spec
+from .units import format_number as num
 
 STEP = 1e-3  # relative perturbation for the central differences
 METRICS = ("gain_db", "f_low", "f_high", "z_in", "z_out", "swing_vpp", "supply_current")
@@ -194,7 +195,7 @@ def recommendations(spreads_: tuple[FigureSpread, ...], spec: Spec,
                              f"{100 * spec.parts.capacitor_tolerance:g} % or a larger value)")
             else:
                 parts.append(f"{c.source} ({100 * c.share:.0f} %)")
-        out.append(f"{sp.figure}: worst case {sp.worst_case:.4g} {sp.unit} against "
+        out.append(f"{sp.figure}: worst case {num(sp.worst_case, 4)} {sp.unit} against "
                    f"{_limit_text(sp.limit, sp.unit)}; driven by " + ", ".join(parts))
     return out
 
@@ -202,7 +203,7 @@ def recommendations(spreads_: tuple[FigureSpread, ...], spec: Spec,
 def _limit_text(limit, unit) -> str:
     if isinstance(limit, tuple):
         return f"{limit[0]:.2f} … {limit[1]:.2f} {unit}"
-    return "no limit" if limit is None else f"{limit:.4g} {unit}"
+    return "no limit" if limit is None else f"{num(limit, 4)} {unit}"
 
 
 def spreads_to_dict(spreads_: tuple[FigureSpread, ...]) -> list[dict]:

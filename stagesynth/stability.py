@@ -27,6 +27,8 @@ from .circuit import Circuit, compile_design
 from .dc import solve_dc
 from .device import T_REF_C, Device, hfe_at
 from .netlist import Design
+from .units import format_number as num
+from .units import format_quantity as eng
 
 ICBO_STEP = 1e-8  # A, leakage injected for S_I (central difference, +- this; IC is linear in it)
 VBE_STEP = 1e-3  # V, shift of the junction voltage at fixed current for S_V
@@ -489,13 +491,13 @@ def thermal_checks(analysis: Analysis, *, step: float = TJ_STEP) -> tuple[Therma
                 peak = max(loop, _scan(path, p_path, theta, amb_hot)[0])
             if loop >= 1.0:
                 violations.append(
-                    f"{q.ref}: thermal runaway, loop gain theta_ja·dP/dTj = {loop:.3g} >= 1 at "
+                    f"{q.ref}: thermal runaway, loop gain theta_ja·dP/dTj = {num(loop, 3)} >= 1 at "
                     f"corner '{label}'"
                 )
             elif peak >= 1.0:
                 violations.append(
-                    f"{q.ref}: thermal runaway, loop gain theta_ja·dP/dTj reaches {peak:.3g} "
-                    f">= 1 while the junction heats from {amb_hot:g} °C to {tj_hot:.4g} °C at "
+                    f"{q.ref}: thermal runaway, loop gain theta_ja·dP/dTj reaches {num(peak, 3)} "
+                    f">= 1 while the junction heats from {amb_hot:g} °C to {num(tj_hot, 4)} °C at "
                     f"corner '{label}'"
                 )
         if dev.p_max is not None and hot is not None:
@@ -508,8 +510,8 @@ def thermal_checks(analysis: Analysis, *, step: float = TJ_STEP) -> tuple[Therma
                 pa = derated_power(dev.p_max, dev.theta_ja, c.condition.ambient)
                 if pc > pa:
                     violations.append(
-                        f"{q.ref}: dissipation {pc * 1e3:.4g} mW exceeds the rating derated to "
-                        f"{c.condition.ambient:g} °C ({pa * 1e3:.4g} mW) at corner "
+                        f"{q.ref}: dissipation {eng(pc, 'W', 4)} exceeds the rating derated to "
+                        f"{c.condition.ambient:g} °C ({eng(pa, 'W', 4)}) at corner "
                         f"'{c.condition.label}'"
                     )
         else:
@@ -527,11 +529,11 @@ def thermal_checks(analysis: Analysis, *, step: float = TJ_STEP) -> tuple[Therma
             pk, t_eq, c = max(hits, key=lambda h: h[0])
             peak = pk if math.isnan(peak) else max(peak, pk)
             where = (f"no thermal equilibrium within {c.condition.ambient + SCAN_SPAN:g} °C"
-                     if t_eq is None else f"the next equilibrium is at {t_eq:.4g} °C")
+                     if t_eq is None else f"the next equilibrium is at {num(t_eq, 4)} °C")
             violations.append(
                 f"{q.ref}: thermal runaway at {len(hits)} corner(s) without a self-heated DC "
                 f"point, e.g. '{c.condition.label}': with the thermal loop open, theta_ja·dP/dTj "
-                f"peaks at {pk:.3g} on heating from {c.condition.ambient:g} °C; {where}"
+                f"peaks at {num(pk, 3)} on heating from {c.condition.ambient:g} °C; {where}"
             )
         finite = [x for x in (loop, peak) if not math.isnan(x)]
         worst = max(finite) if finite else math.nan

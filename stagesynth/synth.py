@@ -38,6 +38,7 @@ from .netlist import Design
 from .spec import Spec
 from .topologies import FAMILIES
 from .topologies.base import FLOOR, Conflict, finalize
+from .units import format_quantity as eng
 from .verdict import (
     Row,
     Verdict,
@@ -247,10 +248,11 @@ def _physics_conflicts(spec: Spec) -> list[Conflict]:
     most = vmin - dev.vce_sat
     if r.swing_vpp >= most:
         out.append(Conflict(
-            "swing", f"{r.swing_vpp:.3g} Vpp",
-            f"no circuit on this supply can swing more than about {most:.3g} Vpp: the output "
-            f"transistor moves at most between the supply ({vmin:.3g} V at its low "
-            f"tolerance) and VCE(sat) = {dev.vce_sat:.3g} V",
+            "swing", f"{eng(r.swing_vpp, 'V', 3)}pp",
+            f"no circuit on this supply can swing more than about {eng(most, 'V', 3)}pp: the "
+            f"output "
+            f"transistor moves at most between the supply ({eng(vmin, 'V', 3)} at its low "
+            f"tolerance) and VCE(sat) = {eng(dev.vce_sat, 'V', 3)}",
             "ask for less swing, or raise the supply voltage",
         ))
     return out
@@ -541,11 +543,12 @@ def _synthesize_family(
             best_text = f"{near.best}; {c.best}" if near else c.best
             conflicts.append(Conflict(c.name, c.limit, best_text, c.advice))
         conflicts.extend(found.values())
+        conflicts = [_as_written(c, verdict) for c in conflicts]
         named = {c.name for c in conflicts}
         for c in verdict.failed:  # every requirement the closest design misses is named
             if c.name not in named:
                 conflicts.append(Conflict(c.name, _check_limit(c),
-                                          f"{_fmt_check(c)} in the closest design",
+                                          f"{_fmt_check(c)} in the closest design written",
                                           _advice(c.name, _number(c.value), spec, c.unit)))
     polarity = "PNP" if spec.transistor.polarity == "pnp" else "NPN"
     notes = [
@@ -644,6 +647,29 @@ def _centre_for_yield(spec: Spec, candidates: list[int], finish, first):
         notes += [f"Tighter tolerance: {r}" for r in recommendations(
             spreads(design, spec), spec, tuple(est.failures))]
     return design, est, notes, sizing
+
+
+def _as_written(conflict: Conflict, verdict) -> Conflict:
+    """The conflict's "best reached" led by the value of the closest design that was
+    written, so the summary and the files agree; the search's own best follows when it
+    reads differently (it may come from a candidate failing something else)."""
+    try:
+        check = verdict.check(conflict.name)
+    except KeyError:
+        return conflict
+    shown = _fmt_check(check)
+    others_met = all(c.ok for c in verdict.checks if c.name != conflict.name)
+    written = f"{shown} in the closest design written" + (
+        ", the other requirements met" if others_met else "")
+    if conflict.best.startswith(shown + " "):
+        rest = conflict.best[len(shown):]
+        for held in (" with the other requirements met", " (at the best compromise for the "
+                     "others)"):
+            rest = rest.replace(held, "", 1)
+        best = written + rest
+    else:
+        best = f"{written}; the search reached {conflict.best}"
+    return Conflict(conflict.name, conflict.limit, best, conflict.advice)
 
 
 def _check_limit(c) -> str:

@@ -5,9 +5,12 @@ from __future__ import annotations
 import math
 
 from .analysis import Analysis
-from .units import format_quantity
+from .units import format_number, format_quantity
+from .units import format_number as num
+from .units import format_quantity as eng
 from .verdict import Check, Verdict
 
+ACTIVE_IC_MIN = 100e-9  # A: a transistor counts as active only above this collector current
 _UNIT_LABEL = {"A": "A", "V": "V", "W": "W", "Hz": "Hz", "Ω": "Ω", "dB": "dB", "Vpp": "Vpp"}
 
 
@@ -18,9 +21,11 @@ def fmt(value: float, unit: str) -> str:
     if unit == "%":
         return f"{100 * value:.2f} %"
     if unit == "":
-        return f"{value:.3g}"
+        return format_number(value)
     if unit == "dB":
         return f"{value:.2f} dB"
+    if unit == "×":
+        return f"×{format_number(value)}"
     if unit == "Vpp":
         return format_quantity(value, "V") + "pp"
     return format_quantity(value, unit)
@@ -35,6 +40,8 @@ def _table(header: list[str], rows: list[list[str]]) -> list[str]:
 def check_value(c: Check) -> str:
     if c.relation == "is":
         return str(c.value).lower()
+    if math.isnan(float(c.value)):
+        return "n/a (not active)"
     return fmt(float(c.value), c.unit)
 
 
@@ -47,6 +54,65 @@ def check_limit(c: Check) -> str:
     return f"{c.relation} {fmt(float(c.limit), c.unit)}"
 
 
+def transistor_cells(s, vce_sat: float) -> tuple[str, str, str]:
+    """IC, VCE and dissipation of one transistor state as table cells. Outside the active
+    region the real voltages are shown, marked as such, and the dissipation is the
+    device's whole terminal power VCE·IC + VBE·IB (never a negative VCE·IC)."""
+    ic, vce = fmt(s.ic, "A"), fmt(s.vce, "V")
+    if s.active:
+        return ic, vce, fmt(s.vce * s.ic, "W")
+    if s.ic <= ACTIVE_IC_MIN:
+        ic += " (cut off)"
+    if s.vce < vce_sat:
+        vce += " (saturated)"
+    return ic, vce, fmt(max(s.vce * s.ic + s.vbe * s.ib, 0.0), "W") + " (not active)"
+
+
+def margin_text(c: Check) -> str:
+    """The margin in the requirement's own unit ("+2.4 Vpp", "×5.5" for a corner), or what
+    the row means where a distance would mean nothing (active region, booleans)."""
+    h = c.headroom
+    if c.name == "active":
+        if not math.isfinite(h):
+            return "no DC solution"
+        return f"VCE ≥ VCE(sat) + {fmt(h, 'V')}" if h >= 0 else (
+            f"VCE {fmt(-h, 'V')} below VCE(sat)")
+    if c.name.endswith(".thermal_runaway"):
+        return "loop gain < 1: no runaway" if c.ok else "loop gain ≥ 1: runs away"
+    if c.relation == "is" or not math.isfinite(h):
+        return "—"
+    if c.headroom_unit == "×":
+        return f"×{format_number(h)}"
+    if c.headroom_unit == "%":
+        return f"{100 * h:+.3g} % points".replace("-", "−")
+    text = fmt(abs(h), c.headroom_unit)
+    return ("+" if h >= 0 else "−") + text
+
+
+def status_text(c: Check) -> str:
+    """"ok", or how far the row misses in its own unit ("short by 1.2 Vpp")."""
+    if c.ok:
+        return "ok"
+    h = c.headroom
+    if c.name == "active":
+        return "out of the active region"
+    if c.name.endswith(".thermal_runaway"):
+        return "thermal runaway"
+    if c.relation == "is":
+        return f"is {str(c.value).lower()}, wanted {str(c.limit).lower()}"
+    if not math.isfinite(h):
+        return "not met"
+    if c.headroom_unit == "×":
+        amount = f"a factor {format_number(1.0 / h)}" if h > 0 else "all of it"
+    elif c.headroom_unit == "%":
+        amount = f"{num(100 * abs(h), 3)} % points"
+    else:
+        amount = fmt(abs(h), c.headroom_unit)
+    if c.relation == "within":
+        return f"outside by {amount}"
+    return f"{'over' if c.relation in ('<=', '<') else 'short'} by {amount}"
+
+
 def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
     d = analysis.design
     out = [f"{d.title or 'design'}" + (f"  [{d.topology}]" if d.topology else "")]
@@ -55,7 +121,7 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
     out.append("")
     worst = min(analysis.corners, key=lambda c: c.swing_vpp)
     rows = [
-        ["gain", f"{analysis.gain_db:.2f} dB ({abs(analysis.gain):.3g} V/V, "
+        ["gain", f"{analysis.gain_db:.2f} dB ({eng(abs(analysis.gain), 'V/V', 3)}, "
                  f"{'inverting' if analysis.inverting else 'non-inverting'})"],
         ["f_low", fmt(analysis.f_low, "Hz") if analysis.f_low > 0 else "none (DC coupled)"],
         ["f_high", fmt(analysis.f_high, "Hz")],
@@ -68,6 +134,7 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
     out += _table(["figure", "value"], rows)
     out.append("")
     refs = [p.ref for p in d.bjts]
+    sat = {p.ref: d.devices[p.device].vce_sat for p in d.bjts}
     header = ["condition"] + [f"{r} {x}" for r in refs for x in ("IC", "VCE", "Tj")] + [
         "supply I", "swing", "limited by"]
     rows = []
@@ -75,19 +142,20 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
         row = [p.condition.label]
         for r in refs:
             s = p.transistors[r]
-            row += [fmt(s.ic, "A"), fmt(s.vce, "V"), f"{s.tj:.1f} °C"]
+            ic, vce, _ = transistor_cells(s, sat[r])
+            row += [ic, vce, f"{s.tj:.1f} °C"]
         row += [fmt(p.supply_current, "A"), fmt(p.swing_vpp, "Vpp"), p.swing_limit]
         rows.append(row)
     out += _table(header, rows)
     if verdict is not None:
         out.append("")
         rows = [
-            [c.name, check_value(c), check_limit(c),
-             f"{100 * c.margin:+.0f} %" if math.isfinite(c.margin) else "",
+            [c.name, check_value(c), check_limit(c), margin_text(c), status_text(c),
              c.condition or c.where, "pass" if c.ok else "FAIL"]
             for c in verdict.checks
         ]
-        out += _table(["requirement", "value", "limit", "margin", "worst at", "result"], rows)
+        out += _table(["requirement", "value", "limit", "margin", "status", "worst at",
+                       "result"], rows)
         out.append("")
         if verdict.meets_spec:
             out.append("verdict: meets the spec")

@@ -388,9 +388,32 @@ def format_quantity(value: float, unit: str = "", digits: int | None = 3) -> str
         return f"0{space_unit}"
     d = _decimal(value, digits)
     exponent = d.adjusted()  # power of ten of the leading digit, after rounding
+    if not -24 <= exponent < 15:  # beyond the prefixes printed: a power of ten
+        return f"{format_number(value, digits or 17)}{space_unit}"
     eng = min(max(3 * math.floor(exponent / 3), -24), 12)
     mantissa = _plain(d.scaleb(-eng))
     return f"{mantissa} {_PRINT_PREFIX[eng]}{unit}".rstrip()
+
+
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+def format_number(value: float, digits: int = 3) -> str:
+    """A plain number (no unit, so no prefix): "0.00103", "1520", and "1.2 × 10⁻⁶" only
+    outside 10⁻³ … 10⁶, never "1.2e-06" (ISO 80000-1 / IEC 60027-1 write powers of ten)."""
+    value = float(value)
+    if math.isnan(value):
+        return "NaN"
+    if math.isinf(value):
+        return "∞" if value > 0 else "-∞"
+    if value == 0:
+        return "0"
+    d = _decimal(value, digits)
+    exponent = d.adjusted()
+    if -3 <= exponent < 6:
+        return _plain(d)
+    mantissa = _plain(d.scaleb(-exponent))
+    return f"{mantissa} × 10{str(exponent).translate(_SUPERSCRIPT)}"
 
 
 _IEC60062_LETTERS = {0: "R", 3: "k", 6: "M", 9: "G", 12: "T"}

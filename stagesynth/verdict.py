@@ -5,8 +5,10 @@ contract, second release): a row holds the worst value over those conditions
 and the index of the condition that decided it. The transistors' absolute
 ratings are judged at the corners. The core, `assess`, works on batched Figures so
 that `analyze`, the synthesizer and the Monte Carlo share one set of rules.
-Margins are normalized so that requirements can be compared: positive passes,
-0.1 means 10 % of the limit to spare.
+Two margins per row: `margin` is normalized so that requirements can be compared
+and ranked (positive passes, 0.1 means 10 % of the limit to spare); `headroom` is
+the same distance in the requirement's own unit (dB, V, Ω, A; a ratio for
+frequency corners), the one a reader is shown.
 """
 
 from __future__ import annotations
@@ -20,6 +22,7 @@ from .analysis import Analysis
 from .circuit import Circuit
 from .evaluate import Figures
 from .spec import Spec
+from .units import format_quantity as eng
 
 
 @dataclass(frozen=True)
@@ -35,6 +38,48 @@ class Row:
     unit: str
     where: str  # "nominal" or "every corner"
     condition: np.ndarray | None = None  # (K,) index of the deciding condition
+
+    @property
+    def headroom(self) -> np.ndarray:
+        """(K,) distance to the limit in `headroom_unit`; see `own_headroom`."""
+        return own_headroom(self.name, self.value, self.limit, self.relation, self.unit,
+                            self.margin)
+
+    @property
+    def headroom_unit(self) -> str:
+        return headroom_unit(self.relation, self.unit)
+
+
+def headroom_unit(relation: str, unit: str) -> str:
+    """"×" for a frequency corner (judged as a ratio), else the requirement's own unit."""
+    if relation == "is":
+        return ""
+    return "×" if unit == "Hz" else unit
+
+
+def own_headroom(name: str, value, limit, relation: str, unit: str, margin) -> np.ndarray:
+    """Margin in the requirement's own unit, positive (ratio above 1) where it passes.
+
+    Frequencies: the ratio by which the corner beats its limit (f_high / limit, limit /
+    f_low). Windows: the distance to the nearer edge. Limits: the difference. The
+    dissipation row's limit is the allowance derated to the corner's ambient, which
+    the normalized margin carries (allowed = value / (1 - margin)). NaN for booleans.
+    """
+    value = np.asarray(value, dtype=float) if relation != "is" else None
+    if value is None:
+        return np.full(np.shape(margin), np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if name.endswith(".p_max"):
+            m = np.asarray(margin, dtype=float)
+            allowed = value / np.maximum(1.0 - m, 1e-300)
+            return np.where(np.isfinite(m), allowed - value, -value)
+        if relation == "within":
+            lo, hi = limit
+            return np.minimum(value - lo, hi - value)
+        if unit == "Hz":
+            ratio = value / limit if relation in (">=", ">") else limit / value
+            return np.where(np.isnan(ratio), 0.0, ratio)
+        return value - limit if relation in (">=", ">") else limit - value
 
 
 def _at_least(name, value, limit, unit, where, cond=None) -> Row:
@@ -214,6 +259,8 @@ class Check:
     where: str
     detail: str = ""
     condition: str = ""  # label of the condition that decided the row ("" when none)
+    headroom: float = math.nan  # distance to the limit in headroom_unit (Row.headroom)
+    headroom_unit: str = ""
 
     def to_dict(self) -> dict:
         limit = list(self.limit) if isinstance(self.limit, tuple) else self.limit
@@ -232,6 +279,8 @@ class Check:
             "where": self.where,
             "detail": self.detail,
             "condition": self.condition,
+            "headroom": self.headroom if math.isfinite(self.headroom) else None,
+            "headroom_unit": self.headroom_unit,
         }
 
 
@@ -292,16 +341,36 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
             if row.name.endswith(".vce_max"):
                 top = max(pt.condition.supply for pt in points)
                 detail += (f"; judged at the operating point; at cutoff VCE approaches "
-                           f"the supply, up to {top:.3g} V: rate the part above that")
+                           f"the supply, up to {eng(top, 'V', 3)}: rate the part above that")
             if row.name.endswith(".p_max") and math.isfinite(float(row.margin[0])):
                 allowed = float(row.value[0]) / max(1.0 - float(row.margin[0]), 1e-300)
-                detail = f"allowance derated to {allowed * 1e3:.4g} mW there; " + detail
+                detail = f"allowance derated to {eng(allowed, 'W', 4)} there; " + detail
+        head, head_unit = float(row.headroom[0]), row.headroom_unit
+        if row.name.endswith((".vce_max", ".p_max", ".ic_max")) and row.condition is not None:
+            ref = row.name.split(".")[0]
+            state = points[int(row.condition[0])].transistors.get(ref)
+            if state is not None and not state.active:  # a rating means nothing there
+                value, head = math.nan, math.nan
+                detail = (f"{ref} is out of the active region at "
+                          f"{points[int(row.condition[0])].condition.label}: see 'active'")
+        if row.name == "active":
+            head, head_unit = _saturation_headroom(analysis, points), "V"
         checks.append(
             Check(row.name, value, row.limit, bool(row.ok[0]), float(row.margin[0]),
-                  row.relation, row.unit, row.where, detail, label)
+                  row.relation, row.unit, row.where, detail, label, head, head_unit)
         )
     checks.extend(_runaway_checks(analysis))
     return Verdict(tuple(checks))
+
+
+def _saturation_headroom(analysis: Analysis, points) -> float:
+    """Smallest VCE − VCE(sat) over the transistors and the judged conditions (V): how far
+    the stage is from saturating, the number behind "active at every corner"."""
+    design = analysis.design
+    sat = {p.ref: design.devices[p.device].vce_sat for p in design.bjts}
+    gaps = [s.vce - sat[ref] for p in points if p.converged
+            for ref, s in p.transistors.items() if ref in sat]
+    return min(gaps, default=math.nan)
 
 
 def _runaway_checks(analysis: Analysis) -> list[Check]:
@@ -317,7 +386,8 @@ def _runaway_checks(analysis: Analysis) -> list[Check]:
         loop = max(t.loop_gain, t.loop_gain_peak)
         out.append(Check(f"{t.ref}.thermal_runaway", loop, 1.0, not t.runaway,
                          1.0 - loop, "<", "", "hottest corner",
-                         f"loop gain θJA·∂P/∂Tj at {t.ambient_hot:g} °C ambient"))
+                         f"loop gain θJA·∂P/∂Tj at {t.ambient_hot:g} °C ambient",
+                         headroom=1.0 - loop, headroom_unit=""))
     return out
 
 
@@ -325,7 +395,8 @@ def yield_check(estimate: float, interval: tuple[float, float], target: float) -
     """The spec's yield requirement against a Monte Carlo estimate (with its interval)."""
     return Check("yield", estimate, target, estimate >= target,
                  (estimate - target) / target, ">=", "%", "built units",
-                 f"95 % interval {100 * interval[0]:.2f} … {100 * interval[1]:.2f} %")
+                 f"95 % interval {100 * interval[0]:.2f} … {100 * interval[1]:.2f} %",
+                 headroom=estimate - target, headroom_unit="%")
 
 
 def with_checks(verdict: Verdict, *extra: Check) -> Verdict:

@@ -15,8 +15,17 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
-from ..textout import check_limit, check_value, fmt
-from ..units import format_quantity
+from ..textout import (
+    check_limit,
+    check_value,
+    fmt,
+    margin_text,
+    status_text,
+    transistor_cells,
+)
+from ..units import format_number, format_quantity
+from ..units import format_number as num
+from ..units import format_quantity as eng
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from ..analysis import Analysis
@@ -91,7 +100,7 @@ def _summary(analysis: Analysis) -> Table:
     sense = "inverting" if analysis.inverting else "non-inverting"
     rows = [
         ("gain at midband", f"{analysis.gain_db:.2f} dB",
-         f"{abs(analysis.gain):.3g} V/V, {sense}, "
+         f"{eng(abs(analysis.gain), 'V/V', 3)}, {sense}, "
          f"phase {_phase_deg(analysis):.0f}°".replace("-", "−")),
         ("lower −3 dB corner f_low",
          fmt(analysis.f_low, "Hz") if analysis.f_low > 0 else "none",
@@ -112,12 +121,11 @@ def _summary(analysis: Analysis) -> Table:
 def _requirements(verdict: Verdict) -> Table:
     rows = []
     for c in verdict.checks:
-        margin = f"{100 * c.margin:+.0f} %" if math.isfinite(c.margin) else ""
         limit = check_limit(c).replace(">=", "≥").replace("<=", "≤")
-        rows.append((c.name, check_value(c), limit, margin, c.condition or c.where,
-                     "pass" if c.ok else "FAIL", c.detail))
-    return Table(("requirement", "value", "limit", "margin", "worst at", "result", "detail"),
-                 tuple(rows), numeric=(1, 3), status=5)
+        rows.append((c.name, check_value(c), limit, margin_text(c), status_text(c),
+                     c.condition or c.where, "pass" if c.ok else "FAIL", c.detail))
+    return Table(("requirement", "value", "limit", "margin", "status", "worst at", "result",
+                  "detail"), tuple(rows), numeric=(1, 3), status=6)
 
 
 def _circuit_text(design: Design, analysis: Analysis) -> list[str]:
@@ -156,7 +164,8 @@ def _operating_tables(design: Design, analysis: Analysis) -> tuple[Table, Table]
     refs = [p.ref for p in design.bjts]
     header = ["condition"]
     for r in refs:
-        header += [f"{r} IC", f"{r} VCE", f"{r} Tj", f"{r} VCE·IC"]
+        header += [f"{r} IC", f"{r} VCE", f"{r} Tj", f"{r} dissipation"]
+    sat = {p.ref: design.devices[p.device].vce_sat for p in design.bjts}
     header += ["supply I", "swing", "limited by", "active"]
     rows = []
     points = (analysis.nominal, *analysis.corners)
@@ -164,7 +173,8 @@ def _operating_tables(design: Design, analysis: Analysis) -> tuple[Table, Table]
         row = [p.condition.label]
         for r in refs:
             s = p.transistors[r]
-            row += [fmt(s.ic, "A"), fmt(s.vce, "V"), f"{s.tj:.1f} °C", fmt(s.vce * s.ic, "W")]
+            ic, vce, power = transistor_cells(s, sat[r])
+            row += [ic, vce, f"{s.tj:.1f} °C", power]
         row += [fmt(p.supply_current, "A"), fmt(p.swing_vpp, "Vpp"), p.swing_limit,
                 "yes" if p.active else "NO"]
         rows.append(tuple(row))
@@ -195,7 +205,7 @@ def _root_rows(pz: PoleZeroMap) -> Table:
             else:
                 where = (f"{'−' if f.real < 0 else '+'}{fmt(abs(f.real), 'Hz')} "
                          f"± j{fmt(abs(f.imag), 'Hz')}")
-            q = "" if f == 0 or f.imag == 0 else f"{r.q:.2g}"
+            q = "" if f == 0 or f.imag == 0 else f"{num(r.q, 2)}"
             rows.append((kind, fmt(r.magnitude, "Hz") if f != 0 else "0", where, q, r.label))
     return Table(("kind", "|s|/2π", "s/2π", "Q", "type"), tuple(rows), numeric=(1, 2))
 
@@ -244,8 +254,10 @@ def build_document(
     )))
     if verdict is not None:
         sections.append(Section("Requirements", (
-            "Margins are relative to the limit: positive passes, +10 % means 10 % of the "
-            "limit to spare.",
+            "Each margin is in the requirement's own unit: dB for gains, volts, ohms and "
+            "amperes for the others, and a factor for the −3 dB corners (×2 means the "
+            "corner lies twice as far out as asked). A failing row says how far short it "
+            "is.",
             _requirements(verdict),
         )))
     sections.append(Section("Circuit", (
@@ -366,9 +378,9 @@ def _robustness_section(rob, spec: Spec | None) -> Section:
         for f in rob.stability:
             st = f.stiffness
             rows.append((
-                f.ref, fmt(f.ic, "A"), f"{f.s_i:.3g}", f"{f.s_v * 1e3:.3g} mA/V",
-                f"{f.s_beta * 1e6:.3g} µA",
-                f"{st.ratio:.3g}" if st is not None else "n/a",
+                f.ref, fmt(f.ic, "A"), f"{num(f.s_i, 3)}", f"{num(f.s_v * 1e3, 3)} mA/V",
+                f"{eng(f.s_beta, 'A', 3)}",
+                f"{num(st.ratio, 3)}" if st is not None else "n/a",
                 f"{f.ic_spread_hfe_pct:+.1f} %", f"{f.ic_spread_ambient_pct:+.1f} %",
             ))
         blocks.append("Bias stability (textbook definitions, e.g. Sedra & Smith): S_I = "
@@ -385,14 +397,14 @@ def _robustness_section(rob, spec: Spec | None) -> Section:
             rows.append((
                 t.ref, fmt(t.p_hot, "W"), f"{t.ambient_hot:g} °C",
                 fmt(t.p_allowed, "W") if t.p_allowed is not None else "no rating",
-                f"{100 * t.margin:+.0f} %" if t.margin is not None else "",
-                f"{t.loop_gain:.3g}", "pass" if t.ok else "FAIL",
+                (fmt(t.p_allowed - t.p_hot, "W") if t.p_allowed is not None else ""),
+                format_number(t.loop_gain), "pass" if t.ok else "FAIL",
             ))
         blocks.append("Thermal safety: dissipation at the hottest corner against the rating "
                       "derated to that ambient, and the thermal loop gain θJA·∂P/∂Tj "
                       "(runaway when it reaches 1).")
         blocks.append(Table(("transistor", "dissipation", "at ambient", "derated allowance",
-                             "margin", "loop gain", "result"), tuple(rows),
+                             "headroom", "loop gain", "result"), tuple(rows),
                             numeric=(1, 3, 4, 5), status=6))
         if rob.violations:
             blocks.append(["Violation: " + v for v in rob.violations])

@@ -15,6 +15,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from ..units import format_number as num
+
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from ..ac import AcSystem
     from ..analysis import Analysis
@@ -114,7 +116,7 @@ def _label(f: complex, midband: float) -> str:
     if f.imag == 0:
         return f"real, {side}, {where}"
     q = abs(f) / (2.0 * abs(f.real)) if f.real != 0 else math.inf
-    return f"complex pair, {side}, Q = {q:.2g}, {where}"
+    return f"complex pair, {side}, Q = {num(q, 2)}, {where}"
 
 
 def _roots(values: np.ndarray, midband: float) -> tuple[Root, ...]:

@@ -27,6 +27,7 @@ import numpy as np
 
 from ..netlist import Design
 from ..spec import Spec
+from ..units import format_quantity as eng
 from .base import Conflict, FirstCut, make_design
 from .ce_ef import (
     VT25,
@@ -232,16 +233,20 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     a1 = load1 / (VT25 / q1.ic + dev.r_bb / (beta + 1.0) + re1_1)
     a2 = rac2 / (re_s2 + re1_2)
     return [
-        f"Output stage Q2: IC ≈ {q2.ic * 1e3:.3g} mA, VCE ≈ {q2.vce:.3g} V, sized first for "
-        f"the swing on its AC load line Rac = RC2 ∥ RL ≈ {rac2:.4g} Ω: cutoff after "
-        f"IC·Rac ≈ {q2.ic * rac2:.3g} V peak, saturation after (VCE − VCEsat)/(1 + RE1/Rac) ≈ "
-        f"{(q2.vce - dev.vce_sat) / (1 + re1_2 / rac2):.3g} V peak. Its RE1 = {re1_2:.4g} Ω "
-        f"gives it a gain of about {a2:.3g} V/V.",
-        f"Input stage Q1: IC ≈ {q1.ic * 1e3:.3g} mA, VCE ≈ {q1.vce:.3g} V; it is loaded by "
-        f"RC1 ∥ RTH2 ∥ Rin2 ≈ {load1:.4g} Ω (Rin2 = (hFE + 1)(re2 + RE1) ≈ {rin2:.4g} Ω), "
-        f"so its gain is about {a1:.3g} V/V; its RE1 = {re1_1:.4g} Ω was set last so that "
+        f"Output stage Q2: IC ≈ {eng(q2.ic, 'A', 3)}, VCE ≈ {eng(q2.vce, 'V', 3)}, sized first for "
+        f"the swing on its AC load line Rac = RC2 ∥ RL ≈ {eng(rac2, 'Ω', 4)}: cutoff after "
+        f"IC·Rac ≈ {eng(q2.ic * rac2, 'V', 3)} peak, saturation after (VCE − VCEsat)/(1 + "
+        f"RE1/Rac) ≈ "
+        f"{eng((q2.vce - dev.vce_sat) / (1 + re1_2 / rac2), 'V', 3)} peak. Its RE1 = "
+        f"{eng(re1_2, 'Ω', 4)} "
+        f"gives it a gain of about {eng(a2, 'V/V', 3)}.",
+        f"Input stage Q1: IC ≈ {eng(q1.ic, 'A', 3)}, VCE ≈ {eng(q1.vce, 'V', 3)}; it is loaded by "
+        f"RC1 ∥ RTH2 ∥ Rin2 ≈ {eng(load1, 'Ω', 4)} (Rin2 = (hFE + 1)(re2 + RE1) ≈ "
+        f"{eng(rin2, 'Ω', 4)}), "
+        f"so its gain is about {eng(a1, 'V/V', 3)}; its RE1 = {eng(re1_1, 'Ω', 4)} was set "
+        f"last so that "
         f"the product lands on the target, and raises the input impedance "
-        f"(analysis: {analysis.z_in:.4g} Ω).",
+        f"(analysis: {eng(analysis.z_in, 'Ω', 4)}).",
         "Two inverting stages: the output is in phase with the input. The interstage "
         "capacitor decouples the bias points, so each stage keeps its own stiff divider bias.",
     ]

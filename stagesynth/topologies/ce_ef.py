@@ -29,6 +29,8 @@ import numpy as np
 from ..device import T_REF_C, Device, thermal_voltage
 from ..netlist import Design
 from ..spec import Spec
+from ..units import format_number as num
+from ..units import format_quantity as eng
 from .base import Conflict, FirstCut, make_design
 from .common_emitter import _vbe, ic_range
 
@@ -124,9 +126,9 @@ def gbw_conflict(spec: Spec, stages: int) -> list[Conflict]:
     if need <= spec.transistor.ft:
         return []
     return [Conflict(
-        "f_high", f"{r.f_high:.4g} Hz at {r.gain:.3g} V/V",
-        f"each gain stage's gain × bandwidth stays below fT = {spec.transistor.ft:.4g} Hz; "
-        f"this asks about {need:.4g} Hz per stage",
+        "f_high", f"{eng(r.f_high, 'Hz', 4)} at {eng(r.gain, 'V/V', 3)}",
+        f"each gain stage's gain × bandwidth stays below fT = {eng(spec.transistor.ft, 'Hz', 4)}; "
+        f"this asks about {eng(need, 'Hz', 4)} per stage",
         "lower the gain or f_high, or choose a transistor with a higher fT")]
 
 
@@ -290,19 +292,22 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     stiff = (dev.hfe_min + 1) * (re1 + re2) / rth
     zout_est = par(r6, VT25 / q2.ic + (rc + dev.r_bb) / (beta + 1.0))
     return [
-        f"Gain stage Q1: IC ≈ {q1.ic * 1e3:.3g} mA, VCE ≈ {q1.vce:.3g} V; its collector "
-        f"resistor RC = {rc:.4g} Ω sees the follower's input resistance "
-        f"(hFE + 1)(re2 + R6 ∥ RL) ≈ {rin2:.4g} Ω instead of the {rl:.4g} Ω load, so the "
+        f"Gain stage Q1: IC ≈ {eng(q1.ic, 'A', 3)}, VCE ≈ {eng(q1.vce, 'V', 3)}; its collector "
+        f"resistor RC = {eng(rc, 'Ω', 4)} sees the follower's input resistance "
+        f"(hFE + 1)(re2 + R6 ∥ RL) ≈ {eng(rin2, 'Ω', 4)} instead of the {eng(rl, 'Ω', 4)} "
+        f"load, so the "
         f"stage gain is about (RC ∥ Rin2)/(re1 + RE1) ≈ "
-        f"{par(rc, rin2) / (VT25 / q1.ic + re1):.3g} V/V.",
-        f"Follower Q2: IE ≈ {q2.ic * 1e3:.3g} mA through R6 = {r6:.4g} Ω, VCE ≈ {q2.vce:.3g} V. "
+        f"{eng(par(rc, rin2) / (VT25 / q1.ic + re1), 'V/V', 3)}.",
+        f"Follower Q2: IE ≈ {eng(q2.ic, 'A', 3)} through R6 = {eng(r6, 'Ω', 4)}, VCE ≈ "
+        f"{eng(q2.vce, 'V', 3)}. "
         f"Before cutoff it can pull the load down by IE·(R6 ∥ RL) ≈ "
-        f"{q2.ic * par(r6, rl):.3g} V peak; its output impedance is about "
-        f"re2 + RC/(hFE + 1) ≈ {zout_est:.3g} Ω (analysis: {analysis.z_out:.3g} Ω).",
+        f"{eng(q2.ic * par(r6, rl), 'V', 3)} peak; its output impedance is about "
+        f"re2 + RC/(hFE + 1) ≈ {eng(zout_est, 'Ω', 3)} (analysis: {eng(analysis.z_out, 'Ω', 3)}).",
         "Direct coupling: the follower's base sits on Q1's collector, so the CE bias "
         "sets the follower's emitter at VC1 − VBE; no interstage capacitor, one pole less "
         "at the low end.",
-        f"Emitter split of Q1: RE1 = {re1:.4g} Ω unbypassed sets the gain, RE2 = {re2:.4g} Ω "
-        f"is bypassed. Divider RTH ≈ {rth:.4g} Ω, (hFE_min + 1)·RE / RTH ≈ {stiff:.3g} "
+        f"Emitter split of Q1: RE1 = {eng(re1, 'Ω', 4)} unbypassed sets the gain, RE2 = "
+        f"{eng(re2, 'Ω', 4)} "
+        f"is bypassed. Divider RTH ≈ {eng(rth, 'Ω', 4)}, (hFE_min + 1)·RE / RTH ≈ {num(stiff, 3)} "
         "(common practice asks about 10 for a stiff bias).",
     ]

@@ -30,6 +30,8 @@ import numpy as np
 from ..device import T_REF_C, thermal_voltage
 from ..netlist import Design
 from ..spec import Spec
+from ..units import format_number as num
+from ..units import format_quantity as eng
 from . import common_emitter
 from .base import Conflict, FirstCut, make_design
 from .emitter_follower import vbe25
@@ -164,16 +166,17 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     ic_lo = feedback_ic(dev.hfe_min, spec.supply.voltage, q.vbe, rf, rc, re_total)
     ic_hi = feedback_ic(dev.hfe_max, spec.supply.voltage, q.vbe, rf, rc, re_total)
     return [
-        f"Bias point IC ≈ {ic * 1e3:.3g} mA, VCE ≈ {vce:.3g} V. Collector feedback: "
-        f"IC = β(VCC − VBE)/(RF + (β + 1)(RC + RE)) with RF = {rf:.4g} Ω (Sedra & Smith); "
-        f"over hFE {dev.hfe_min:g} … {dev.hfe_max:g} that gives IC ≈ {ic_lo * 1e3:.3g} … "
-        f"{ic_hi * 1e3:.3g} mA at 25 °C. VCE = VBE + IB·RF, so a stiffer loop (smaller RF) "
+        f"Bias point IC ≈ {eng(ic, 'A', 3)}, VCE ≈ {eng(vce, 'V', 3)}. Collector feedback: "
+        f"IC = β(VCC − VBE)/(RF + (β + 1)(RC + RE)) with RF = {eng(rf, 'Ω', 4)} (Sedra & Smith); "
+        f"over hFE {dev.hfe_min:g} … {dev.hfe_max:g} that gives IC ≈ {num(ic_lo * 1e3, 3)} … "
+        f"{eng(ic_hi, 'A', 3)} at 25 °C. VCE = VBE + IB·RF, so a stiffer loop (smaller RF) "
         "holds IC better but leaves less headroom: the classic trade of this bias.",
-        f"RF is split ({values['R1']:.4g} Ω + {values['R2']:.4g} Ω) with C4 to AC ground at "
+        f"RF is split ({eng(values['R1'], 'Ω', 4)} + {eng(values['R2'], 'Ω', 4)}) with C4 to "
+        f"AC ground at "
         "the midpoint, so the feedback acts at DC only and does not lower the gain or the "
         "input impedance.",
-        f"Emitter split: RE1 = {re1:.4g} Ω unbypassed sets the gain ≈ Rac/(re + RE1) with "
-        f"Rac = RC ∥ RL ∥ R1 ≈ {rac:.4g} Ω and re = VT/IC ≈ {vt / ic:.3g} Ω; RE2 = "
-        f"{re2:.4g} Ω is bypassed and adds to the DC loop only.",
-        f"Input impedance ≈ R2 ∥ (β + 1)(re + RE1): {analysis.z_in:.4g} Ω at midband.",
+        f"Emitter split: RE1 = {eng(re1, 'Ω', 4)} unbypassed sets the gain ≈ Rac/(re + RE1) with "
+        f"Rac = RC ∥ RL ∥ R1 ≈ {eng(rac, 'Ω', 4)} and re = VT/IC ≈ {eng(vt / ic, 'Ω', 3)}; RE2 = "
+        f"{eng(re2, 'Ω', 4)} is bypassed and adds to the DC loop only.",
+        f"Input impedance ≈ R2 ∥ (β + 1)(re + RE1): {eng(analysis.z_in, 'Ω', 4)} at midband.",
     ]

@@ -22,6 +22,8 @@ import numpy as np
 from ..device import T_REF_C, thermal_voltage
 from ..netlist import Design
 from ..spec import Spec
+from ..units import format_number as num
+from ..units import format_quantity as eng
 from .base import Conflict, FirstCut, make_design
 from .emitter_follower import divider, vbe25
 
@@ -144,10 +146,10 @@ def precheck(spec: Spec) -> list[Conflict]:
     bound = input_resistance_bound(spec)
     if r.z_in > bound:
         out.append(Conflict(
-            "z_in", f"≥ {r.z_in:.4g} Ω",
+            "z_in", f"≥ {eng(r.z_in, 'Ω', 4)}",
             f"a common-base input looks into the emitter, about RE ∥ re with re = VT/IC; even "
             f"at the smallest bias this family uses ({IC_MIN * 1e6:.0f} µA) that stays below "
-            f"{bound:.4g} Ω",
+            f"{eng(bound, 'Ω', 4)}",
             "use a common-emitter stage or a follower for a high input impedance"))
     rs = spec.source.resistance
     if rs > 0:
@@ -155,9 +157,9 @@ def precheck(spec: Spec) -> list[Conflict]:
         low = r.gain * 10 ** (-r.gain_tolerance_db / 20.0)
         if low >= ceiling:
             out.append(Conflict(
-                "gain", f"≥ {20 * np.log10(low):.3g} dB",
+                "gain", f"≥ {num(20 * np.log10(low), 3)} dB",
                 f"a common-base stage's current gain is below unity, so its voltage gain "
-                f"stays below RL/Rs = {20 * np.log10(ceiling):.3g} dB",
+                f"stays below RL/Rs = {num(20 * np.log10(ceiling), 3)} dB",
                 "lower the gain, or use a common-emitter stage"))
     return out
 
@@ -175,16 +177,19 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     rth = values["R1"] * values["R2"] / (values["R1"] + values["R2"])
     stiff = (dev.hfe_min + 1) * re / rth
     return [
-        f"Bias point IC ≈ {ic * 1e3:.3g} mA, VCE ≈ {vce:.3g} V; re = VT/IC ≈ {vt / ic:.3g} Ω.",
-        f"Input impedance ≈ RE ∥ re (Sedra & Smith): {analysis.z_in:.4g} Ω at midband with "
-        f"RE = {re:.4g} Ω; the bias current is what sets it, which is why this stage suits a "
+        f"Bias point IC ≈ {eng(ic, 'A', 3)}, VCE ≈ {eng(vce, 'V', 3)}; re = VT/IC ≈ "
+        f"{eng(vt / ic, 'Ω', 3)}.",
+        f"Input impedance ≈ RE ∥ re (Sedra & Smith): {eng(analysis.z_in, 'Ω', 4)} at midband with "
+        f"RE = {eng(re, 'Ω', 4)}; the bias current is what sets it, which is why this stage "
+        f"suits a "
         "low-impedance (e.g. 50 Ω) source.",
-        f"Gain ≈ α·Rac / (Rs + RE ∥ re) with Rac = RC ∥ RL ≈ {rac:.4g} Ω: "
+        f"Gain ≈ α·Rac / (Rs + RE ∥ re) with Rac = RC ∥ RL ≈ {eng(rac, 'Ω', 4)}: "
         f"{analysis.gain_db:.2f} dB, non-inverting; the base is held at AC ground by C3, so "
         "Cμ is not Miller-multiplied and the band reaches "
-        f"{analysis.f_high:.4g} Hz.",
-        f"AC load line: the load can swing about IC·Rac ≈ {ic * rac:.3g} V peak before "
-        f"cutoff and about VCE − VCEsat ≈ {vce - dev.vce_sat:.3g} V before saturation.",
-        f"Divider: RTH ≈ {rth:.4g} Ω, (hFE_min + 1)·RE / RTH ≈ {stiff:.3g} (common practice "
+        f"{eng(analysis.f_high, 'Hz', 4)}.",
+        f"AC load line: the load can swing about IC·Rac ≈ {eng(ic * rac, 'V', 3)} peak before "
+        f"cutoff and about VCE − VCEsat ≈ {eng(vce - dev.vce_sat, 'V', 3)} before saturation.",
+        f"Divider: RTH ≈ {eng(rth, 'Ω', 4)}, (hFE_min + 1)·RE / RTH ≈ {num(stiff, 3)} (common "
+        f"practice "
         "asks for about 10; C3 bypasses it, so it costs no input impedance).",
     ]

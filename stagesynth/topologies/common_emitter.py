@@ -21,6 +21,8 @@ import numpy as np
 from ..device import T_REF_C, Device, thermal_voltage
 from ..netlist import Design
 from ..spec import Spec
+from ..units import format_number as num
+from ..units import format_quantity as eng
 from .base import Conflict, FirstCut, make_design
 
 NAME = "ce"
@@ -158,9 +160,10 @@ def precheck(spec: Spec) -> list[Conflict]:
     gbw = r.gain * r.f_high
     if gbw > spec.transistor.ft:
         out.append(Conflict(
-            "f_high", f"{r.f_high:.4g} Hz at {r.gain:.3g} V/V",
-            f"one transistor's gain × bandwidth stays below fT = {spec.transistor.ft:.4g} Hz; "
-            f"this asks {gbw:.4g} Hz",
+            "f_high", f"{eng(r.f_high, 'Hz', 4)} at {eng(r.gain, 'V/V', 3)}",
+            f"one transistor's gain × bandwidth stays below fT = "
+            f"{eng(spec.transistor.ft, 'Hz', 4)}; "
+            f"this asks {eng(gbw, 'Hz', 4)}",
             "lower the gain or f_high, use two stages, or a transistor with a higher fT"))
     return out
 
@@ -181,16 +184,18 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     stiff = (dev.hfe_min + 1) * re_total / rth
     vt = float(thermal_voltage(T_REF_C))
     notes = [
-        f"Bias point IC ≈ {ic * 1e3:.3g} mA, VCE ≈ {vce:.3g} V, VE ≈ {ve:.3g} V "
+        f"Bias point IC ≈ {eng(ic, 'A', 3)}, VCE ≈ {eng(vce, 'V', 3)}, VE ≈ {eng(ve, 'V', 3)} "
         f"({100 * ve / vcc:.0f} % of the supply; common practice is about 10 %).",
-        f"AC load line: Rac = RC ∥ RL ≈ {rac:.4g} Ω. Before cutoff the load can swing "
-        f"IC·Rac ≈ {ic * rac:.3g} V peak; before saturation about (VCE − VCEsat)/(1 + RE1/Rac) ≈ "
-        f"{(vce - dev.vce_sat) / (1 + re1 / rac):.3g} V peak (design-notes relations; the "
+        f"AC load line: Rac = RC ∥ RL ≈ {eng(rac, 'Ω', 4)}. Before cutoff the load can swing "
+        f"IC·Rac ≈ {eng(ic * rac, 'V', 3)} peak; before saturation about (VCE − VCEsat)/(1 + "
+        f"RE1/Rac) ≈ "
+        f"{eng((vce - dev.vce_sat) / (1 + re1 / rac), 'V', 3)} peak (design-notes relations; the "
         "verdict uses the exact analysis at every corner).",
-        f"Emitter split: RE1 = {re1:.4g} Ω unbypassed sets the gain ≈ Rac/(re + RE1) with "
-        f"re = VT/IC ≈ {vt / ic:.3g} Ω, linearises the stage and raises the input "
-        f"resistance; RE2 = {re2:.4g} Ω is bypassed and only sets the DC bias.",
-        f"Divider: RTH = R1 ∥ R2 ≈ {rth:.4g} Ω, i.e. (hFE_min + 1)·RE / RTH ≈ {stiff:.3g} "
+        f"Emitter split: RE1 = {eng(re1, 'Ω', 4)} unbypassed sets the gain ≈ Rac/(re + RE1) with "
+        f"re = VT/IC ≈ {eng(vt / ic, 'Ω', 3)}, linearises the stage and raises the input "
+        f"resistance; RE2 = {eng(re2, 'Ω', 4)} is bypassed and only sets the DC bias.",
+        f"Divider: RTH = R1 ∥ R2 ≈ {eng(rth, 'Ω', 4)}, i.e. (hFE_min + 1)·RE / RTH ≈ "
+        f"{num(stiff, 3)} "
         "(common practice asks for about 10 or more for a stiff bias; a smaller figure "
         "trades bias stability for input impedance).",
     ]

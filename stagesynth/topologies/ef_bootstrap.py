@@ -24,6 +24,7 @@ import numpy as np
 
 from ..netlist import Design
 from ..spec import Spec
+from ..units import format_quantity as eng
 from .base import Conflict, FirstCut, make_design
 from .emitter_follower import (
     divider,
@@ -112,8 +113,8 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     notes = follower_notes(spec, analysis, values["R4"], rth, r3)
     notes.append(
         f"Bootstrap: C3 drives the divider midpoint with the emitter signal, so R3 = "
-        f"{r3:.4g} Ω carries only (1 − A) of its plain current and looks like R3/(1 − A) "
+        f"{eng(r3, 'Ω', 4)} carries only (1 − A) of its plain current and looks like R3/(1 − A) "
         "(Horowitz & Hill). The input impedance is "
-        f"{analysis.z_in:.4g} Ω at midband against {rth:.4g} Ω for the bare divider; "
+        f"{eng(analysis.z_in, 'Ω', 4)} at midband against {eng(rth, 'Ω', 4)} for the bare divider; "
         "the ceiling is now the transistor's own (β + 1)·(RE ∥ RTH ∥ RL).")
     return notes

@@ -24,6 +24,8 @@ import numpy as np
 
 from ..netlist import Design
 from ..spec import Spec
+from ..units import format_number as num
+from ..units import format_quantity as eng
 from .base import Conflict, FirstCut, make_design
 from .ce_ef import (
     VT25,
@@ -179,19 +181,23 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     rth = par(v["R1"], v["R2"])
     r_base = (dev.hfe_min + 1.0) * par(v["R3"], (dev.hfe_min + 1.0) * (re1 + re2))
     return [
-        f"Gain stage Q2: IC ≈ {q2.ic * 1e3:.3g} mA, VCE ≈ {q2.vce:.3g} V on the AC load line "
-        f"Rac = RC ∥ RL ≈ {rac:.4g} Ω: cutoff after IC·Rac ≈ {q2.ic * rac:.3g} V peak, "
+        f"Gain stage Q2: IC ≈ {eng(q2.ic, 'A', 3)}, VCE ≈ {eng(q2.vce, 'V', 3)} on the AC "
+        f"load line "
+        f"Rac = RC ∥ RL ≈ {eng(rac, 'Ω', 4)}: cutoff after IC·Rac ≈ "
+        f"{eng(q2.ic * rac, 'V', 3)} peak, "
         f"saturation after (VCE − VCEsat)/(1 + RE1/Rac) ≈ "
-        f"{(q2.vce - dev.vce_sat) / (1 + re1 / rac):.3g} V peak. RE1 = {re1:.4g} Ω sets its "
-        f"gain ≈ Rac/(re + RE1) ≈ {rac / (VT25 / q2.ic + re1):.3g} V/V; RE2 = {re2:.4g} Ω "
+        f"{eng((q2.vce - dev.vce_sat) / (1 + re1 / rac), 'V', 3)} peak. RE1 = "
+        f"{eng(re1, 'Ω', 4)} sets its "
+        f"gain ≈ Rac/(re + RE1) ≈ {eng(rac / (VT25 / q2.ic + re1), 'V/V', 3)}; RE2 = "
+        f"{eng(re2, 'Ω', 4)} "
         "is bypassed.",
-        f"Follower Q1: IE ≈ {q1.ic * 1e3:.3g} mA, VCE ≈ {q1.vce:.3g} V, loaded by "
-        f"R3 ∥ Rin2 ≈ {par(v['R3'], rin2):.4g} Ω; it multiplies that by (hFE + 1), so the "
-        f"input impedance is set mostly by the divider RTH ≈ {rth:.4g} Ω "
-        f"(analysis: {analysis.z_in:.4g} Ω).",
+        f"Follower Q1: IE ≈ {eng(q1.ic, 'A', 3)}, VCE ≈ {eng(q1.vce, 'V', 3)}, loaded by "
+        f"R3 ∥ Rin2 ≈ {eng(par(v['R3'], rin2), 'Ω', 4)}; it multiplies that by (hFE + 1), so the "
+        f"input impedance is set mostly by the divider RTH ≈ {eng(rth, 'Ω', 4)} "
+        f"(analysis: {eng(analysis.z_in, 'Ω', 4)}).",
         "Direct coupling: one divider biases both transistors; the CE emitter sits two "
         "VBE below the divider voltage, so its VE is chosen larger than a single stage's "
         "to absorb both VBE drifts. Stiffness (DC resistance at the follower base) / RTH "
-        f"≈ {r_base / rth:.3g} (common practice asks about 10; less trades stability for "
+        f"≈ {num(r_base / rth, 3)} (common practice asks about 10; less trades stability for "
         "input impedance).",
     ]

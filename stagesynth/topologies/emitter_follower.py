@@ -21,6 +21,8 @@ import numpy as np
 from ..device import T_REF_C, Device, thermal_voltage
 from ..netlist import Design
 from ..spec import Spec
+from ..units import format_number as num
+from ..units import format_quantity as eng
 from .base import Conflict, FirstCut, make_design
 
 NAME = "ef"
@@ -162,7 +164,7 @@ def follower_conflicts(spec: Spec) -> list[Conflict]:
     lo_db, hi_db = r.gain_db - r.gain_tolerance_db, r.gain_db + r.gain_tolerance_db
     if lo_db >= 0.0:
         out.append(Conflict(
-            "gain", f"{lo_db:.3g} … {hi_db:.3g} dB",
+            "gain", f"{num(lo_db, 3)} … {num(hi_db, 3)} dB",
             "a follower's voltage gain is below unity (below 0 dB): the emitter follows the "
             "base less a small drop across re",
             "ask for a gain below 0 dB (e.g. -1 dB ± 1 dB), or use a circuit with voltage gain"))
@@ -192,21 +194,24 @@ def follower_notes(spec: Spec, analysis, re: float, rth: float, r_base: float = 
     vt = float(thermal_voltage(T_REF_C))
     stiff = (dev.hfe_min + 1) * re / (rth + r_base)
     return [
-        f"Bias point IC ≈ {ic * 1e3:.3g} mA, VCE ≈ {vce:.3g} V, emitter ≈ {ve:.3g} V from "
+        f"Bias point IC ≈ {eng(ic, 'A', 3)}, VCE ≈ {eng(vce, 'V', 3)}, emitter ≈ "
+        f"{eng(ve, 'V', 3)} from "
         f"its rail ({100 * ve / vcc:.0f} % of the supply; near half the supply the two "
         "clipping edges meet).",
-        f"Emitter load RE ∥ RL ≈ {rel:.4g} Ω: the half-wave that pulls the emitter toward "
-        f"its rail clips at cutoff after about IE·(RE ∥ RL) ≈ {ic * rel:.3g} V peak, the "
-        f"other at saturation after about VCE − VCEsat ≈ {vce - dev.vce_sat:.3g} V (the "
+        f"Emitter load RE ∥ RL ≈ {eng(rel, 'Ω', 4)}: the half-wave that pulls the emitter toward "
+        f"its rail clips at cutoff after about IE·(RE ∥ RL) ≈ {eng(ic * rel, 'V', 3)} peak, the "
+        f"other at saturation after about VCE − VCEsat ≈ {eng(vce - dev.vce_sat, 'V', 3)} (the "
         "verdict uses the exact analysis at every corner).",
         f"Gain ≈ (β + 1)·R'E / (rπ + (β + 1)·R'E) times the input divider (Sedra & Smith): "
         f"{analysis.gain_db:.2f} dB here, below unity as for every follower; "
         f"non-inverting.",
         f"Output impedance ≈ RE ∥ (re + (Rs ∥ RTH + rx)/(β + 1)) with re = VT/IC ≈ "
-        f"{vt / ic:.3g} Ω; with C2's reactance in series, {analysis.z_out:.3g} Ω at midband "
+        f"{eng(vt / ic, 'Ω', 3)}; with C2's reactance in series, "
+        f"{eng(analysis.z_out, 'Ω', 3)} at midband "
         "(a low output impedance is what a follower is for: cable and load driving).",
-        f"Divider: RTH ≈ {rth:.4g} Ω, i.e. (hFE_min + 1)·RE / (RTH + series base resistance) "
-        f"≈ {stiff:.3g} (common practice asks for about 10 for a stiff bias; a smaller "
+        f"Divider: RTH ≈ {eng(rth, 'Ω', 4)}, i.e. (hFE_min + 1)·RE / (RTH + series base "
+        f"resistance) "
+        f"≈ {num(stiff, 3)} (common practice asks for about 10 for a stiff bias; a smaller "
         "figure trades bias stability for input impedance).",
     ]
 
@@ -216,7 +221,7 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     values = design.values()
     rth = values["R1"] * values["R2"] / (values["R1"] + values["R2"])
     notes = follower_notes(spec, analysis, values["R3"], rth)
-    notes.append(f"Input impedance ≈ RTH ∥ (rπ + (β + 1)·R'E): {analysis.z_in:.4g} Ω at "
+    notes.append(f"Input impedance ≈ RTH ∥ (rπ + (β + 1)·R'E): {eng(analysis.z_in, 'Ω', 4)} at "
                  "midband; the divider sets the ceiling. For far more, the bootstrapped "
                  "follower lifts the divider's AC loading.")
     return notes
