@@ -147,19 +147,31 @@ def test_pngs_are_images(bundle):
 
 
 def test_bom_csv_names_every_part(bundle, case):
-    """bom.csv parses with the csv module and has one row per part of the design."""
+    """bom.csv parses with the csv module (and pandas' default read_csv) and names every
+    part of the design exactly once, grouped with a quantity."""
+    import pandas as pd
+
     design, _, _ = case
     root, _ = bundle
-    rows = list(csv.DictReader(io.StringIO((root / "bom.csv").read_text(encoding="utf-8"))))
-    assert [r["ref"] for r in rows] == [p.ref for p in design.parts]
-    by_ref = {r["ref"]: r for r in rows}
+    raw = (root / "bom.csv").read_bytes()
+    assert raw.isascii()  # opens with the right characters whatever a spreadsheet guesses
+    rows = list(csv.DictReader(io.StringIO(raw.decode("ascii"))))
+    refs = [ref for r in rows for ref in r["refs"].split()]
+    assert sorted(refs) == sorted(p.ref for p in design.parts)
+    assert all(int(r["qty"]) == len(r["refs"].split()) for r in rows)
+    by_ref = {ref: r for r in rows for ref in r["refs"].split()}
     # IEC 60063: 47, 10, 39, 100 and 680 are E24 values; 10 and 220 (uF) are E6 values
     for ref in ("R1", "R2", "R3", "R4", "R5"):
         assert by_ref[ref]["series"] == "E24"
     for ref in ("C1", "C2", "C3"):
         assert by_ref[ref]["series"] == "E6"
-    assert by_ref["Q1"]["kind"] == "transistor"
-    assert "generic-npn" in by_ref["Q1"]["value"]
+    assert by_ref["R3"]["value"] == "3.9 kohm" and by_ref["C3"]["value"] == "220 uF"
+    assert by_ref["Q1"]["part"] == "transistor"
+    assert "generic-npn" not in by_ref["Q1"]["value"]  # what to buy, not a preset name
+    frame = pd.read_csv(root / "bom.csv")
+    assert list(frame.columns) == list(rows[0].keys())
+    assert frame["qty"].sum() == len(design.parts)
+    assert list(frame["value"]) == [r["value"] for r in rows]
 
 
 def _si(text: str) -> float:

@@ -34,6 +34,10 @@ CAPACITOR_SERIES = ("E3", "E6", "E12", "E24")
 
 COLUMNS = ("ref", "kind", "value", "series", "tolerance", "nodes", "dc_voltage_max",
            "dissipation_max", "suggested_rating", "type", "note")
+# The order list (bom.csv): identical parts grouped, what to buy, in ASCII units.
+ORDER_COLUMNS = ("qty", "refs", "part", "value", "series", "tolerance", "rating", "type",
+                 "note")
+PART_NAMES = {"resistor": "resistor", "capacitor": "capacitor", "transistor": "transistor"}
 
 
 def next_rating(needed: float, steps: tuple[float, ...]) -> float | None:
@@ -77,10 +81,24 @@ def _series_of(part: Part, spec: Spec | None) -> tuple[str, str, str]:
         if eseries.is_standard(value, name):
             return name, tol_text, ""
         return f"not {name}", tol_text, f"value is not in the spec's {name} series"
+    return _series_without_spec(part, value)
+
+
+def _series_without_spec(part: Part, value: float, tolerance: float | None = None):
+    from .. import eseries
+
+    tol_text = format_quantity(tolerance, "%") if tolerance is not None else ""
     for name in RESISTOR_SERIES if part.kind == "resistor" else CAPACITOR_SERIES:
         if eseries.is_standard(value, name):
-            return name, "", ""
-    return "none", "", "not an IEC 60063 value"
+            return name, tol_text, ""
+    return "none", tol_text, "not an IEC 60063 value"
+
+
+def _recorded_tolerance(design: Design, kind: str) -> float | None:
+    """The part tolerance the design was synthesized (and checked) with, when recorded."""
+    record = design.extra.get("synthesis") if isinstance(design.extra, Mapping) else None
+    tol = record.get(f"{kind}_tolerance") if isinstance(record, Mapping) else None
+    return float(tol) if isinstance(tol, int | float) and not isinstance(tol, bool) else None
 
 
 def capacitor_stress(design: Design, analysis: Analysis, part: Part) -> dict:
@@ -115,7 +133,7 @@ def _capacitor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, 
                    else "above 630 V: choose with care")
     if st["polarized"]:
         plus = st["positive"]
-        kind = f"electrolytic suits, + to {plus}"
+        kind = f"electrolytic (aluminium, polarized), + to {plus}"
         note = (f"positive end on node {plus} (higher DC voltage at every corner); "
                 f"rating ≥ {DERATING:g}× the highest DC voltage (common practice)")
     elif st["type"] == "bipolar electrolytic or film":
@@ -123,7 +141,7 @@ def _capacitor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, 
         note = ("DC voltage across it is tiny or changes sign: a polarized part would be "
                 "barely biased, so a non-polar type is safer")
     else:
-        kind = "film or ceramic (C0G/NP0 below 1 nF)"
+        kind = dielectric(float(part.value))
         note = f"rating ≥ {DERATING:g}× the highest DC voltage (common practice)"
     return {
         "dc_voltage_max": format_quantity(worst, "V") if worst is not None else "n/a",
@@ -132,6 +150,15 @@ def _capacitor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, 
         "type": kind,
         "note": note,
     }
+
+
+def dielectric(value: float) -> str:
+    """A non-electrolytic capacitor's dielectric for a signal path (common practice): C0G
+    ceramic (no voltage or temperature coefficient to speak of) up to 1 nF, film above,
+    where class-2 ceramics (X7R) would add distortion through their voltage coefficient."""
+    if value <= 1e-9:
+        return "ceramic C0G/NP0"
+    return "film (polyester or polypropylene)"
 
 
 def _resistor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, str]:
@@ -145,31 +172,56 @@ def _resistor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, s
         "dissipation_max": format_quantity(worst, "W") if math.isfinite(worst) else "n/a",
         "suggested_rating": (f"{format_quantity(rating, 'W')}" if rating is not None
                              else "above 5 W: choose with care"),
-        "type": "",
+        "type": "metal film",
         "note": f"rating ≥ {DERATING:g}× worst-corner dissipation (common practice)",
     }
 
 
+def transistor_needs(design: Design, analysis: Analysis, part: Part) -> dict:
+    """What the transistor bought for `part` must offer, from the design's worst corner:
+    the hFE spread and fT/Ccb the analysis assumed, and the ratings it needs (common
+    practice: IC and dissipation ratings at least DERATING x the worst stress; VCE
+    rated above the highest supply, which VCE approaches at cutoff)."""
+    dev = design.devices[part.device]
+    points = _points(analysis)
+    states = [(p, p.transistors[part.ref]) for p in points if p.converged]
+    active = [(p, s) for p, s in states if s.active]
+    supply = max(p.condition.supply for p in points)
+    out = {"polarity": dev.polarity.upper(), "hfe": (dev.hfe_min, dev.hfe_max), "ft": dev.ft,
+           "c_cb": dev.c_cb, "vce_needed": supply, "ic_worst": None, "p_worst": None,
+           "p_point": None, "tj_max": max((s.tj for _, s in states), default=None),
+           "ambient_max": max(p.condition.ambient for p in points)}
+    if active:
+        point, worst = max(active, key=lambda ps: ps[1].vce * ps[1].ic)
+        out.update(ic_worst=max(s.ic for _, s in active), p_worst=worst.vce * worst.ic,
+                   p_point=(point, worst))
+    return out
+
+
 def _bjt_row(design: Design, analysis: Analysis, part: Part) -> dict[str, str]:
     dev = design.devices[part.device]
-    states = [(p, p.transistors[part.ref]) for p in _points(analysis) if p.converged]
-    if states:
-        point, worst = max(states, key=lambda ps: ps[1].vce * ps[1].ic)
-        power = worst.vce * worst.ic
-        hottest = max(s.tj for _, s in states)
-        diss = format_quantity(power, "W")
+    need = transistor_needs(design, analysis, part)
+    ratings = [f"VCEO ≥ {format_quantity(need['vce_needed'], 'V')}"]
+    if need["p_point"] is not None:
+        point, worst = need["p_point"]
+        ratings += [f"IC(max) ≥ {format_quantity(DERATING * need['ic_worst'], 'A')}",
+                    f"Ptot ≥ {format_quantity(DERATING * need['p_worst'], 'W')} at "
+                    f"{need['ambient_max']:g} °C"]
+        diss = format_quantity(need["p_worst"], "W")
         note = (f"worst at {point.condition.label} "
                 f"(VCE {format_quantity(worst.vce, 'V')}, IC {format_quantity(worst.ic, 'A')}); "
-                f"Tj up to {hottest:.1f} °C")
-        if dev.p_max is not None:
-            note += f"; rated {format_quantity(dev.p_max, 'W')}"
+                f"Tj up to {need['tj_max']:.1f} °C; ratings: VCE approaches the supply at "
+                f"cutoff, IC and Ptot ≥ {DERATING:g}× the worst corner (common practice)")
     else:
-        diss, note = "n/a", "no DC solution at any corner"
+        diss, note = "n/a", "not in the active region at any corner: no stress to rate"
+    if dev.name:
+        note += f"; verified with the data of '{dev.name}'"
     return {
         "dc_voltage_max": "",
         "dissipation_max": diss,
-        "suggested_rating": "",
-        "type": f"{dev.polarity.upper()}, device {part.device}",
+        "suggested_rating": ", ".join(ratings),
+        "type": (f"{need['polarity']} small-signal, fT ≥ {format_quantity(need['ft'], 'Hz')}, "
+                 f"Ccb ≤ {format_quantity(need['c_cb'], 'F')}"),
         "note": note,
     }
 
@@ -183,15 +235,19 @@ def bom_rows(design: Design, analysis: Analysis, spec: Spec | None = None) -> li
             base = {
                 "ref": part.ref,
                 "kind": "transistor",
-                "value": dev.name or part.device,
+                "value": f"{dev.polarity.upper()}, hFE {dev.hfe_min:g}–{dev.hfe_max:g}",
                 "series": "",
-                "tolerance": f"hFE {dev.hfe_min:g}–{dev.hfe_max:g}",
+                "tolerance": f"hFE {dev.hfe_min:g}–{dev.hfe_max:g} at 25 °C",
                 "nodes": ", ".join(f"{t}={n}" for t, n in zip("cbe", part.nodes, strict=True)),
             }
             base.update(_bjt_row(design, analysis, part))
         else:
             unit = "Ω" if part.kind == "resistor" else "F"
-            series, tol, note = _series_of(part, spec)
+            if spec is not None:
+                series, tol, note = _series_of(part, spec)
+            else:
+                series, tol, note = _series_without_spec(
+                    part, float(part.value), _recorded_tolerance(design, part.kind))
             base = {
                 "ref": part.ref,
                 "kind": part.kind,
@@ -211,11 +267,55 @@ def bom_rows(design: Design, analysis: Analysis, spec: Spec | None = None) -> li
 
 def bom_csv(design: Design, analysis: Analysis, spec: Spec | None = None,
             rows: list[Mapping[str, str]] | None = None) -> str:
-    """The parts list as CSV text (header row, then one row per part)."""
+    """The order list as CSV text, ASCII only: a header row, then one row per group of
+    identical parts with its quantity (ORDER_COLUMNS)."""
     rows = rows if rows is not None else bom_rows(design, analysis, spec)
     buf = io.StringIO()
-    writer = csv.DictWriter(buf, fieldnames=list(COLUMNS), lineterminator="\n")
+    writer = csv.DictWriter(buf, fieldnames=list(ORDER_COLUMNS), lineterminator="\r\n")
     writer.writeheader()
-    for row in rows:
-        writer.writerow(row)
+    for row in order_rows(rows):
+        writer.writerow({k: ascii_text(v) for k, v in row.items()})
     return buf.getvalue()
+
+
+_ASCII = {"Ω": "ohm", "µ": "u", "μ": "u", "–": "-", "—": "-", "≥": ">=", "≤": "<=",
+          "°C": "degC", "×": "x", "…": "...", "∥": "||", "·": "*", "−": "-"}
+
+
+def ascii_text(text: str) -> str:
+    """Units and signs in ASCII ("4.7 kohm", "10 uF", ">="): a CSV that opens with the
+    right characters in any spreadsheet, whatever encoding it guesses."""
+    for uni, plain in _ASCII.items():
+        text = text.replace(uni, plain)
+    return text.encode("ascii", "replace").decode("ascii")
+
+
+def order_rows(rows: list[Mapping[str, str]]) -> list[dict[str, str]]:
+    """Identical parts grouped into one line with a quantity, in the order they first
+    appear: same kind, value, series, tolerance, type and rating (a polarized capacitor's
+    "+ to node" is where it goes, not what to buy)."""
+    groups: dict[tuple, dict[str, object]] = {}
+    for r in rows:
+        kind = r["type"].split(", + to ")[0]
+        key = (r["kind"], r["value"], r["series"], r["tolerance"], kind,
+               r["suggested_rating"])
+        if key not in groups:
+            groups[key] = {"refs": [], "row": r, "type": kind}
+        groups[key]["refs"].append(r["ref"])
+    out = []
+    for g in groups.values():
+        r = g["row"]
+        notes = [n for n in r["note"].split("; ") if n and not n.startswith(
+            ("positive end", "worst at"))]
+        out.append({
+            "qty": str(len(g["refs"])),
+            "refs": " ".join(g["refs"]),
+            "part": PART_NAMES.get(r["kind"], r["kind"]),
+            "value": r["value"],
+            "series": r["series"],
+            "tolerance": r["tolerance"],
+            "rating": r["suggested_rating"],
+            "type": g["type"],
+            "note": "; ".join(notes),
+        })
+    return out

@@ -160,6 +160,15 @@ def _bom_table(rows: Sequence[Mapping[str, str]]) -> Table:
                   "suggested rating", "type", "notes"), tuple(body), numeric=(2, 6))
 
 
+def _order_table(rows: Sequence[Mapping[str, str]]) -> Table:
+    from .bom import order_rows
+
+    body = tuple((r["qty"], r["refs"], r["part"], r["value"], r["tolerance"], r["rating"],
+                  r["type"]) for r in order_rows(list(rows)))
+    return Table(("qty", "refs", "part", "value", "tolerance", "rating", "type"), body,
+                 numeric=(0,))
+
+
 def _operating_tables(design: Design, analysis: Analysis) -> tuple[Table, Table]:
     refs = [p.ref for p in design.bjts]
     header = ["condition"]
@@ -271,8 +280,13 @@ def build_document(
         "ratings are common practice: at least 2× the worst stress, rounded up to the next "
         "standard step. Series is the IEC 60063 series the value belongs to"
         + (" (the spec's series and tolerance)." if spec is not None
-           else " (the coarsest that holds it; tolerance is not recorded in a design file)."),
+           else " (the coarsest that holds it; the tolerance the design was made with, "
+                "when its file records it)."),
         _bom_table(bom),
+        "To order (bom.csv): identical parts grouped, with what each must offer. A "
+        "transistor is any part of that polarity whose hFE spread lies within the range "
+        "shown, with at least the fT and ratings listed and at most the Ccb.",
+        _order_table(bom),
     )))
     ops, volts = _operating_tables(design, analysis)
     sections.append(Section("Operating point at every corner", (
