@@ -187,8 +187,7 @@ def design(
             if f.note:
                 typer.echo(f"  {f.name}: not tried ({f.note})", err=True)
             else:
-                typer.echo(f"  {f.name}: fails {', '.join(f.failed)} "
-                           f"(smallest margin {100 * f.worst_margin:+.0f} %)", err=True)
+                typer.echo(f"  {f.name}: fails {', '.join(f.failed)} ({f.tightest})", err=True)
     typer.echo(f"the closest design was written, marked \"meets_spec\": false: "
                f"{out / 'design.json'}", err=True)
     raise typer.Exit(1)

@@ -69,6 +69,7 @@ class FamilyReport:
     worst_margin: float
     failed: tuple[str, ...]
     note: str = ""
+    tightest: str = ""  # the requirement closest to its limit (or missing it most), readable
 
 
 @dataclass(frozen=True)
@@ -387,10 +388,17 @@ def synthesize(
 
 
 def _family_report(family, result: SynthesisResult) -> FamilyReport:
-    margins = [c.margin for c in result.verdict.checks if math.isfinite(c.margin)]
+    from .textout import margin_text, status_text
+
+    finite = [c for c in result.verdict.checks if math.isfinite(c.margin)]
+    worst = min(finite, key=lambda c: c.margin, default=None)
+    tightest = "" if worst is None else (
+        f"{worst.name} {margin_text(worst)}" if worst.ok else f"{worst.name} "
+        f"{status_text(worst)}")
     return FamilyReport(
         family.NAME, family.TITLE, family.STAGES, result.meets_spec,
-        min(margins, default=math.inf), tuple(c.name for c in result.verdict.failed),
+        worst.margin if worst is not None else math.inf,
+        tuple(c.name for c in result.verdict.failed), tightest=tightest,
     )
 
 
@@ -401,10 +409,10 @@ def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport]) -> l
         if r.note:
             lines.append(f"{r.title}: not tried ({r.note}).")
         elif r.meets:
-            lines.append(f"{r.title}: meets every requirement, smallest margin "
-                         f"{100 * r.worst_margin:+.0f} %.")
+            lines.append(f"{r.title}: meets every requirement; closest to its limit: "
+                         f"{r.tightest}.")
         else:
-            lines.append(f"{r.title}: fails {', '.join(r.failed)}.")
+            lines.append(f"{r.title}: fails {', '.join(r.failed)} ({r.tightest}).")
     if chosen is None:
         head = ("Circuit choice: no circuit family met every requirement; the closest "
                 "(fewest failed requirements, then the best margin) is shown.")

@@ -303,7 +303,7 @@ def build_document(
         sections.append(pulse_section(pulse))
     bode_caption = "Gain magnitude and phase of the nominal stage, from the AC analysis. "
     if spec is not None:
-        bode_caption += ("Hatched areas are outside the spec: above the gain window across "
+        bode_caption += ("Shaded areas are outside the spec: above the gain window across "
                          "the required band, and below midband − 3 dB inside it (a −3 dB point "
                          "there would break f_low or f_high); the bar at midband is the "
                          "gain window, judged at midband.")

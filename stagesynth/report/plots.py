@@ -140,10 +140,17 @@ def _band_lines(ax, band: tuple[float, float] | None, label: bool) -> None:
                    label="required band edge" if label and k == 0 else None)
 
 
-def _forbidden(ax, f0: float, f1: float, y0: float, y1: float, label: str | None) -> None:
-    """A shaded, hatched rectangle the response must stay out of."""
-    ax.fill_between([f0, f1], [y0, y0], [y1, y1], facecolor=MASK, alpha=0.2, edgecolor=MASK,
-                    hatch="////", linewidth=0.0, zorder=1, label=label)
+def _forbidden(ax, f0: float, f1: float, y0: float, y1: float, label: str | None,
+               colour: str = MASK, edge: float | None = None) -> None:
+    """A shaded rectangle the response must stay out of, its limit drawn as a solid edge.
+
+    Flat fills and lines only (no hatching): SVG hatch patterns do not survive every
+    browser's inline rendering, and the HTML report must look like the PNG.
+    """
+    ax.fill_between([f0, f1], [y0, y0], [y1, y1], facecolor=colour, alpha=0.22,
+                    edgecolor="none", linewidth=0.0, zorder=1, label=label)
+    if edge is not None:
+        ax.plot([f0, f1], [edge, edge], color=colour, linewidth=1.3, zorder=2)
 
 
 def _label_box() -> dict:
@@ -192,7 +199,7 @@ def bode_figure(analysis: Analysis, spec: Spec | None = None) -> Figure:
             bottom = min(bottom, target - tol - 12.0)
             # above the gain window over the required band
             _forbidden(ax, band[0], band[1], target + tol, top + 100.0,
-                       "outside the spec")
+                       "outside the spec", edge=target + tol)
             # below midband - 3 dB inside the band: a -3 dB point there breaks f_low/f_high
             _forbidden(ax, band[0], band[1], bottom - 100.0, mid_db - 3.0, None)
             # the midband gain window target +- tol, judged at the midband frequency
@@ -243,7 +250,7 @@ def bode_figure(analysis: Analysis, spec: Spec | None = None) -> Figure:
         axp.yaxis.set_major_locator(MultipleLocator(step))
         axp.set_ylim(step * math.floor(ph.min() / step) - 5, step * math.ceil(ph.max() / step) + 5)
         axp.set_ylabel("phase  (°)")
-        axp.set_xlabel("frequency")
+        axp.set_xlabel("frequency  (Hz)")
         for a in (ax, axp):
             _eng_log_axis(a.xaxis, "Hz", math.log10(f[-1] / f[0]))
             _grid(a)
@@ -268,57 +275,70 @@ def impedance_data(analysis: Analysis, spec: Spec | None = None) -> dict[str, np
     }
 
 
+def impedance_limits(spec: Spec | None) -> dict[str, tuple[float | None, float | None]]:
+    """The spec's (lowest, highest) allowed value of each terminal impedance (None: open)."""
+    if spec is None:
+        return {"z_in": (None, None), "z_out": (None, None)}
+    r = spec.require
+    z_in_lo = float(r.z_in) if r.z_in > 0 else None
+    z_in_hi = getattr(r, "z_in_max", None)
+    z_out_hi = float(r.z_out) if r.z_out is not None else None
+    z_out_lo = getattr(r, "z_out_min", None)
+    return {"z_in": (z_in_lo, z_in_hi), "z_out": (z_out_lo, z_out_hi)}
+
+
 def impedance_figure(analysis: Analysis, spec: Spec | None = None) -> Figure:
-    """|Z_in| (load in place) and |Z_out| (source in place) with the spec's limits."""
+    """|Z_in| (load in place) and |Z_out| (source in place), each on its own panel with
+    only its own limits shaded, so neither curve runs through the other's region."""
     import matplotlib
 
     with matplotlib.rc_context(_STYLE):
         data = impedance_data(analysis, spec)
-        f, zin, zout = data["f"], data["z_in"], data["z_out"]
-        fig = _new_figure(8.6, 5.6)
-        ax = fig.add_subplot(1, 1, 1)
-        lo = min(float(zin.min()), float(zout.min()))
-        hi = max(float(zin.max()), float(zout.max()))
+        f = data["f"]
+        fig = _new_figure(8.6, 7.0)
+        gs = fig.add_gridspec(2, 1, hspace=0.12)
+        axes = (fig.add_subplot(gs[0]),)
+        axes = (axes[0], fig.add_subplot(gs[1], sharex=axes[0]))
         band = _band(analysis, spec)
-        if spec is not None and band is not None:
-            if spec.require.z_in > 0:
-                zmin = float(spec.require.z_in)
-                lo, hi = min(lo, zmin), max(hi, zmin)
-                _forbidden(ax, band[0], band[1], 1e-30, zmin,
-                           f"Z_in below {eng_label(zmin, 'Ω')} (judged at midband)")
-            if spec.require.z_out is not None:
-                zmax = float(spec.require.z_out)
-                lo, hi = min(lo, zmax), max(hi, zmax)
-                ax.fill_between([band[0], band[1]], [zmax, zmax], [1e30, 1e30],
-                                facecolor=ORANGE, alpha=0.10, edgecolor=ORANGE, hatch="\\\\\\\\",
-                                linewidth=0.0, zorder=1,
-                                label=f"Z_out above {eng_label(zmax, 'Ω')} (judged at midband)")
-        _band_lines(ax, band, label=True)
-        ax.loglog(f, zin, color=BLUE, linewidth=2.0, zorder=3, label="|Z_in|, load in place")
-        ax.loglog(f, zout, color=ORANGE, linewidth=2.0, linestyle=(0, (7, 3)), zorder=3,
-                  label="|Z_out|, source in place")
-        for value, colour, name, dy in ((analysis.z_in, BLUE, "Z_in", 12),
-                                        (analysis.z_out, ORANGE, "Z_out", -12)):
+        limits = impedance_limits(spec)
+        panels = (("z_in", "Z_in", "|Z_in|, load in place", BLUE, (0, ()), analysis.z_in),
+                  ("z_out", "Z_out", "|Z_out|, source in place", ORANGE, (0, (7, 3)),
+                   analysis.z_out))
+        for ax, (key, name, label, colour, style, value) in zip(axes, panels, strict=True):
+            z = data[key]
+            lo_lim, hi_lim = limits[key]
+            lo = min([float(z.min())] + [x for x in (lo_lim, hi_lim) if x is not None])
+            hi = max([float(z.max())] + [x for x in (lo_lim, hi_lim) if x is not None])
+            if band is not None:
+                if lo_lim is not None:
+                    _forbidden(ax, band[0], band[1], 1e-30, lo_lim,
+                               f"{name} below {eng_label(lo_lim, 'Ω')} (judged at midband)",
+                               colour=MASK, edge=lo_lim)
+                if hi_lim is not None:
+                    _forbidden(ax, band[0], band[1], hi_lim, 1e30,
+                               f"{name} above {eng_label(hi_lim, 'Ω')} (judged at midband)",
+                               colour=MASK, edge=hi_lim)
+            _band_lines(ax, band, label=True)
+            ax.loglog(f, z, color=colour, linewidth=2.0, linestyle=style, zorder=3, label=label)
             ax.plot([analysis.midband], [value], marker="o", markersize=6.5,
                     markerfacecolor="white", markeredgecolor=colour, markeredgewidth=1.6,
                     linestyle="none", zorder=5)
             ax.annotate(f"{name} = {eng_label(value, 'Ω')}", xy=(analysis.midband, value),
-                        xytext=(10, dy), textcoords="offset points", ha="left",
-                        va="bottom" if dy > 0 else "top", fontsize=9.5, color=INK,
-                        bbox=_label_box(), zorder=6)
-        ax.set_xlim(f[0], f[-1])
-        ax.set_ylim(lo / 4.0, hi * 4.0)
-        _eng_log_axis(ax.xaxis, "Hz", math.log10(f[-1] / f[0]))
-        _eng_log_axis(ax.yaxis, "Ω", math.log10(16.0 * hi / lo))
-        _grid(ax)
-        ax.set_xlabel("frequency")
-        ax.set_ylabel("|Z|")
-        ax.set_title(f"Terminal impedances (values at midband {eng_label(analysis.midband, 'Hz')})",
-                     loc="left")
-        handles, labels = ax.get_legend_handles_labels()
-        fig.legend(handles, labels, loc="lower center", ncols=2, handlelength=2.6,
-                   frameon=False, bbox_to_anchor=(0.5, 0.0))
-        fig.subplots_adjust(left=0.1, right=0.97, top=0.92, bottom=0.235)
+                        xytext=(10, 10), textcoords="offset points", ha="left", va="bottom",
+                        fontsize=9.5, color=INK, bbox=_label_box(), zorder=6)
+            ax.set_xlim(f[0], f[-1])
+            ax.set_ylim(lo / 4.0, hi * 8.0)
+            _eng_log_axis(ax.xaxis, "Hz", math.log10(f[-1] / f[0]))
+            _eng_log_axis(ax.yaxis, "Ω", math.log10(32.0 * hi / lo))
+            _grid(ax)
+            ax.set_ylabel(f"|{name}|  (Ω)")
+            ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False,
+                      fontsize=8.5, handlelength=2.2)
+        axes[0].tick_params(labelbottom=False)
+        axes[1].set_xlabel("frequency  (Hz)")
+        axes[0].set_title(f"Terminal impedances (values at midband "
+                          f"{eng_label(analysis.midband, 'Hz')})", loc="left")
+        fig.subplots_adjust(left=0.1, right=0.66, top=0.94, bottom=0.09)
     return fig
 
 
@@ -346,19 +366,67 @@ def figure_png(fig: Figure, dpi: int = 150) -> bytes:
 
 
 _HIST_PANELS = (
-    ("gain_db", "gain (worse ambient)", "dB"),
-    ("f_low", "f_low (worse ambient)", "Hz"),
-    ("f_high", "f_high (worse ambient)", "Hz"),
-    ("swing_vpp", "swing (worse ambient)", "Vpp"),
+    ("gain_db", "gain", "dB"),
+    ("f_low", "f_low", "Hz"),
+    ("f_high", "f_high", "Hz"),
+    ("swing_vpp", "swing", "Vpp"),
 )
+_HIST_BINS = (12, 40)  # fewest and most bins a panel gets
+
+
+def histogram_bins(vals: np.ndarray) -> np.ndarray:
+    """Bin edges over the data's own span (Freedman–Diaconis width, numpy's "fd"), kept
+    between 12 and 40 bins, so a narrow spread shows its shape wherever the limits lie."""
+    lo, hi = float(vals.min()), float(vals.max())
+    if not hi > lo:
+        width = abs(lo) * 1e-3 or 1e-3
+        return np.linspace(lo - 6 * width, hi + 6 * width, _HIST_BINS[0] + 1)
+    n = len(np.histogram_bin_edges(vals, bins="fd")) - 1
+    n = int(min(max(n, _HIST_BINS[0]), _HIST_BINS[1]))
+    pad = (hi - lo) / n / 2
+    return np.linspace(lo - pad, hi + pad, n + 1)
+
+
+def _tick_formatter(unit: str):
+    """Tick labels in engineering notation with as many digits as the tick spacing needs
+    (neighbouring ticks never print the same text)."""
+    from matplotlib.ticker import Formatter
+
+    class _Eng(Formatter):
+        def _text(self, v: float, digits: int) -> str:
+            if unit == "dB":
+                return _num(v, f".{max(0, digits - 2)}f")
+            text = format_quantity(v, "V" if unit == "Vpp" else unit, digits=digits)
+            return text + ("pp" if unit == "Vpp" else "")
+
+        def format_ticks(self, values):
+            locs = np.asarray(values, dtype=float)
+            step = float(np.min(np.abs(np.diff(locs)))) if locs.size > 1 else 0.0
+            big = float(np.max(np.abs(locs))) if locs.size else 1.0
+            digits = (int(min(max(math.ceil(math.log10(big / step)) + 1, 2), 7))
+                      if step > 0 and big > 0 else 3)
+            return [self._text(v, digits) for v in locs]
+
+        def __call__(self, v, pos=None):
+            return self._text(v, 4)
+
+    return _Eng()
 
 
 def histogram_figure(estimate, spec: Spec) -> Figure:
     """Monte Carlo spread of gain, f_low, f_high and swing, with the spec's limits drawn.
 
     Each unit contributes its value at the worse of the two ambient extremes, so a unit
-    is inside every limit drawn here exactly when it passes those requirements.
+    is inside every limit drawn here exactly when it passes those requirements. Bins
+    follow the data; a limit far from the spread is named at the panel's edge with an
+    arrow instead of squeezing the histogram into one bar. No legend sits on the data:
+    the limits are named in each panel's title and once below the figure.
     """
+    import matplotlib
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+    from matplotlib.ticker import MaxNLocator
+
     r = spec.require
     limits = {
         "gain_db": (r.gain_db - r.gain_tolerance_db, r.gain_db + r.gain_tolerance_db),
@@ -366,38 +434,58 @@ def histogram_figure(estimate, spec: Spec) -> Figure:
         "f_high": (r.f_high, None),
         "swing_vpp": (r.swing_vpp if r.swing_vpp > 0 else None, None),
     }
-    fig = _new_figure(8.6, 5.6)
-    axes = fig.subplots(2, 2)
-    for ax, (key, title, unit) in zip(axes.ravel(), _HIST_PANELS, strict=True):
-        vals = np.asarray(estimate.metrics[key], dtype=float)
-        vals = vals[np.isfinite(vals)]
-        lo, hi = limits[key]
-        if vals.size:
-            span = [vals.min(), vals.max()]
-            for x in (lo, hi):
-                if x is not None:
-                    span += [x]
-            pad = 0.05 * (max(span) - min(span) or abs(max(span)) or 1.0)
-            bins = np.linspace(min(span) - pad, max(span) + pad, 41)
-            ax.hist(vals, bins=bins, color=BLUE, alpha=0.85, edgecolor="white", linewidth=0.4)
-        for x, side in ((lo, "lower"), (hi, "upper")):
-            if x is not None:
-                ax.axvline(x, color=ORANGE, linewidth=1.6,
-                           label=f"spec {side} limit {eng_label(x, unit)}")
-        ax.set_title(title, fontsize=10, color=INK, loc="left")
-        ax.set_ylabel("units", fontsize=9)
-        if unit != "dB":
-            ax.xaxis.set_major_formatter(
-                __import__("matplotlib.ticker", fromlist=["FuncFormatter"]).FuncFormatter(
-                    lambda v, _pos, u=unit: eng_label(v, u)))
-        ax.tick_params(labelsize=8)
-        ax.grid(True, color=GRID_MINOR, linewidth=0.5)
-        ax.set_axisbelow(True)
-        if lo is not None or hi is not None:
-            ax.legend(fontsize=7.5, loc="best", frameon=True, facecolor="white",
-                      edgecolor="none", framealpha=0.92)
-    fig.suptitle(
-        f"Monte Carlo: {estimate.units} units, {100 * estimate.estimate:.2f} % meet every "
-        f"requirement (seed {estimate.seed})", fontsize=10.5, x=0.02, ha="left", color=INK)
-    fig.subplots_adjust(left=0.08, right=0.98, top=0.88, bottom=0.08, hspace=0.42, wspace=0.2)
+    with matplotlib.rc_context(_STYLE):
+        fig = _new_figure(8.6, 6.4)
+        axes = fig.subplots(2, 2)
+        for ax, (key, title, unit) in zip(axes.ravel(), _HIST_PANELS, strict=True):
+            vals = np.asarray(estimate.metrics[key], dtype=float)
+            vals = vals[np.isfinite(vals)]
+            lo, hi = limits[key]
+            named = []
+            if vals.size:
+                bins = histogram_bins(vals)
+                ax.hist(vals, bins=bins, color=BLUE, alpha=0.85, edgecolor="white",
+                        linewidth=0.4, zorder=2)
+                left, right = float(bins[0]), float(bins[-1])
+                span = right - left
+                # show a limit in place when it lies within a span of the data
+                for x in (lo, hi):
+                    if x is not None and left - span <= x <= right + span:
+                        left, right = min(left, x - 0.04 * span), max(right, x + 0.04 * span)
+                ax.set_xlim(left, right)
+                for x, side in ((lo, "min"), (hi, "max")):
+                    if x is None:
+                        continue
+                    named.append(f"{side} {eng_label(x, 'V' if unit == 'Vpp' else unit)}"
+                                 + ("pp" if unit == "Vpp" else ""))
+                    if left <= x <= right:
+                        ax.axvline(x, color=ORANGE, linewidth=1.8, zorder=3)
+                    else:
+                        at_right = x > right
+                        ax.annotate(f"{side} limit {'→' if at_right else '←'}",
+                                    xy=(1.0 if at_right else 0.0, 0.93),
+                                    xycoords="axes fraction", ha="right" if at_right
+                                    else "left", va="top", fontsize=8, color=ORANGE)
+            limits_text = (", limits " + ", ".join(named)) if named else ""
+            ax.set_title(f"{title} at the worse ambient{limits_text}", fontsize=9.5,
+                         color=INK, loc="left")
+            ax.set_ylabel("units (count)", fontsize=9)
+            ax.set_xlabel(f"{title}  ({unit})", fontsize=9)
+            ax.xaxis.set_major_locator(MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]))
+            ax.yaxis.set_major_locator(MaxNLocator(nbins=5, integer=True))
+            ax.xaxis.set_major_formatter(_tick_formatter(unit))
+            ax.tick_params(labelsize=8)
+            ax.grid(True, color=GRID_MINOR, linewidth=0.5)
+            ax.set_axisbelow(True)
+            ax.set_ylim(0, ax.get_ylim()[1] * 1.12)  # headroom for the edge notes
+        fig.legend([Patch(facecolor=BLUE, alpha=0.85), Line2D([], [], color=ORANGE,
+                                                              linewidth=1.8)],
+                   ["simulated units", "spec limit (an arrow: beyond the panel's edge)"],
+                   loc="lower center", ncols=2, frameon=False, fontsize=8.5)
+        fig.suptitle(
+            f"Monte Carlo: {estimate.units} units, {100 * estimate.estimate:.2f} % meet every "
+            f"requirement (seed {estimate.seed})", fontsize=10.5, x=0.02, ha="left",
+            color=INK)
+        fig.subplots_adjust(left=0.08, right=0.98, top=0.89, bottom=0.15, hspace=0.62,
+                            wspace=0.22)
     return fig
