@@ -62,6 +62,13 @@ PULSE_HELP = ('Width of the pulse whose tilt the report gives, e.g. "100 µs" '
               "(default: 1/(100·f_low)).")
 
 
+def _warned(spec):
+    """Print the spec's plausibility warnings (stderr, not errors) and hand it on."""
+    for line in spec.warnings:
+        typer.echo(f"warning: {spec.path}: {line}", err=True)
+    return spec
+
+
 @app.command()
 @user_errors
 def analyze(
@@ -90,7 +97,7 @@ def analyze(
         raise StageError(f"{units} is not a number of units", key="--yield",
                          accepted="a positive whole number, e.g. 10000")
     design = api.load_design(design_file)
-    spec_obj = api.load_spec(spec) if spec is not None else None
+    spec_obj = _warned(api.load_spec(spec)) if spec is not None else None
     if units is not None and spec_obj is None:
         raise StageError("the Monte Carlo needs the part tolerances of a spec", key="--yield",
                          accepted="--spec SPEC.toml together with --yield N")
@@ -159,7 +166,7 @@ def design(
         raise StageError(f"--prefer {prefer!r} is not a choice", key="--prefer",
                          accepted=", ".join(api.PREFER))
     width = _pulse_width(pulse_width)
-    spec = api.load_spec(spec_file)
+    spec = _warned(api.load_spec(spec_file))
     outdir = OutputDir(out, force=force)
     outdir.check(["design.json"] + ([] if no_report else api.report_files()))  # before any work
     if circuit is not None:
@@ -221,7 +228,7 @@ def caps(
     if target <= 0:
         raise StageError("must be positive", key="--f-low", accepted='e.g. "5 Hz"')
     d = api.load_design(design_file)
-    spec_obj = api.load_spec(spec) if spec is not None else None
+    spec_obj = _warned(api.load_spec(spec)) if spec is not None else None
     change = api.resize_capacitors(d, target, spec_obj)
     target_path = out or design_file
     outdir = OutputDir(target_path.parent, force=force)
@@ -260,7 +267,7 @@ def report(
 
     width = _pulse_width(pulse_width)
     d = api.load_design(design_file)
-    spec_obj = api.load_spec(spec) if spec is not None else None
+    spec_obj = _warned(api.load_spec(spec)) if spec is not None else None
     result = api.analyze(d, spec_obj, units=0)
     written = api.write_report(result, out, force=force, pulse_width=width)
     typer.echo(f"wrote {', '.join(str(p) for p in written)}")
@@ -289,7 +296,7 @@ def plot(
     from .report.bundle import write_plots
 
     d = api.load_design(design_file)
-    spec_obj = api.load_spec(spec) if spec is not None else None
+    spec_obj = _warned(api.load_spec(spec)) if spec is not None else None
     result = api.analyze(d, spec_obj, units=0)
     outdir = OutputDir(out or design_file.parent, force=force)
     written = write_plots(outdir, d, result.analysis, spec_obj)

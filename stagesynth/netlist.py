@@ -457,8 +457,24 @@ def _part_from_dict(raw: Any, i: int, devices: Mapping[str, Device], r: _Reader)
         raise r.fail(f"{path}.nodes", "both ends are on the same node", "two different nodes")
     if kind == "bjt":
         return Part(ref=ref, kind=kind, nodes=names, device=raw["device"])
-    value = r.number(raw, "value", path)
+    if isinstance(raw.get("value"), str):  # written as in a spec: "4k7", "100 nF"
+        value = _text_value(raw["value"], kind, f"{path}.value", r)
+    else:
+        value = r.number(raw, "value", path)
     return Part(ref=ref, kind=kind, nodes=names, value=value)
+
+
+def _text_value(text: str, kind: str, where: str, r) -> float:
+    """A part value written as text: SI prefix and unit or an IEC 60062 code, read by the
+    same parser as the spec; it must be a positive finite quantity of the part's kind."""
+    from .units import parse_quantity
+
+    unit = "Ω" if kind == "resistor" else "F"
+    value = parse_quantity(text, unit, key=where, file=r.file)
+    if not value > 0:
+        raise r.fail(where, f"{text!r} must be positive", "a positive value such as '4k7' "
+                     "or '100 nF'")
+    return value
 
 
 def check_connectivity(design: Design, file: str = "<design>") -> None:

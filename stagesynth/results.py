@@ -67,10 +67,23 @@ def analysis_to_dict(analysis: Analysis, verdict: Verdict | None = None) -> dict
         "nominal": point_to_dict(analysis.nominal),
         "corners": [point_to_dict(c) for c in analysis.corners],
     }
+    _add_return_loss(out, analysis)
     if verdict is not None:
         out["meets_spec"] = verdict.meets_spec
         out["checks"] = [c.to_dict() for c in verdict.checks]
     return out
+
+
+def _add_return_loss(out: dict[str, Any], analysis: Analysis) -> None:
+    """`return_loss` (dB) at nominal and in each corner entry (the input match)."""
+    from .match import condition_return_loss
+
+    rl = condition_return_loss(analysis)
+    if len(rl) != 1 + len(out["corners"]):
+        return
+    out["return_loss"] = _num(rl[0])
+    for entry, value in zip(out["corners"], rl[1:], strict=True):
+        entry["return_loss"] = _num(value)
 
 
 def predicted_block(analysis: Analysis) -> dict[str, Any]:

@@ -39,6 +39,9 @@ from .units import (
 class Supply:
     voltage: float  # V, single positive supply to ground
     tolerance: float = 0.0  # fraction, e.g. 0.05 for 5 %
+    # a range [lo, hi] as written (a battery); voltage is then its middle and tolerance
+    # its half-width, so the corners and the Monte Carlo span exactly the range
+    range: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True)
@@ -65,6 +68,10 @@ class Requirements:
     inverting: str = "any"  # "any", "yes" or "no"
     z_out: float | None = None  # ohm, at most
     yield_target: float | None = None  # fraction, e.g. 0.99
+    # ranges and input match (a block of their own)
+    z_in_max: float | None = None  # ohm: z_in written as a range [z_in, z_in_max]
+    z_out_min: float | None = None  # ohm: z_out written as a range [z_out_min, z_out]
+    return_loss: float | None = None  # dB, at least, over f_low..f_high
 
     @property
     def gain_db(self) -> float:
@@ -94,6 +101,7 @@ class Spec:
     parts: Parts = Parts()
     title: str = ""
     path: str = ""  # the file it was read from, for messages
+    warnings: tuple[str, ...] = ()  # values accepted but unlikely for their key
 
     def to_dict(self) -> dict[str, Any]:
         """The spec as the dict of its TOML file (load_spec accepts it back)."""
@@ -110,6 +118,7 @@ _SECTION_KEYS: dict[str, tuple[str, ...]] = {
     "require": (
         "gain", "gain_tolerance", "f_low", "f_high", "z_in", "swing", "supply_current",
         "ambient", "inverting", "z_out", "yield",
+        "return_loss",
     ),
     "parts": ("resistors", "resistor_tolerance", "capacitors", "capacitor_tolerance"),
 }
@@ -404,11 +413,14 @@ def spec_from_mapping(data: Mapping[str, Any], file: str = "<spec>", *,
                          accepted='free text in quotes, e.g. title = "Geophone preamp"')
 
     s = _table(data, "supply", file, required=True)
-    supply = Supply(
-        voltage=_quantity(s, "voltage", "supply", file, "V", ">0",
-                          required_example='voltage = "12 V"'),
-        tolerance=_tolerance(s, "tolerance", "supply", file, 0.0),
-    )
+    if isinstance(s.get("voltage"), list | tuple):
+        supply = _supply_range(s, file)
+    else:
+        supply = Supply(
+            voltage=_quantity(s, "voltage", "supply", file, "V", ">0",
+                              required_example='voltage = "12 V"'),
+            tolerance=_tolerance(s, "tolerance", "supply", file, 0.0),
+        )
 
     src = _table(data, "source", file, required=False)
     source = Source(resistance=_quantity(src, "resistance", "source", file, "Ω", ">=0", 0.0))
@@ -420,7 +432,9 @@ def spec_from_mapping(data: Mapping[str, Any], file: str = "<spec>", *,
         capacitance=_quantity(ld, "capacitance", "load", file, "F", ">=0", 0.0),
     )
 
-    require = _requirements(_table(data, "require", file, required=True), file)
+    req_table = _table(data, "require", file, required=True)
+    require = _requirements(_scalar_bounds(req_table), file)
+    require = _ranges_and_match(require, req_table, source, file)
 
     if "transistor" not in data:
         raise StageError("the section [transistor] is missing", file=file, key="transistor",
@@ -430,8 +444,75 @@ def spec_from_mapping(data: Mapping[str, Any], file: str = "<spec>", *,
     transistor = device_from_mapping(data["transistor"], file, "transistor", base_dir=folder)
 
     parts = _parts(_table(data, "parts", file, required=False), file)
-    return Spec(supply=supply, load=load, require=require, transistor=transistor,
+    spec = Spec(supply=supply, load=load, require=require, transistor=transistor,
                 source=source, parts=parts, title=title, path=file)
+    from .plausible import spec_warnings
+
+    return dataclasses.replace(spec, warnings=tuple(spec_warnings(spec)))
+
+
+# ---------------------------------------------------------------------------
+# Supply and impedance ranges, input match
+# ---------------------------------------------------------------------------
+_RANGE_ACCEPTED = '[min, max] such as ["6.6 V", "9.5 V"]'
+
+
+def _pair(value: Any, key: str, file: str, unit: str, example: str) -> tuple[float, float]:
+    """A [min, max] pair of quantities in `unit`, min > 0 and min <= max."""
+    accepted = f"[min, max] such as {example}"
+    if len(value) != 2:
+        raise StageError(f"{value!r} has {len(value)} entries, not 2", file=file, key=key,
+                         accepted=accepted)
+    lo, hi = (parse_quantity(v, unit, key=key, file=file) for v in value)
+    if not 0 < lo <= hi:
+        raise StageError(f"[{format_quantity(lo, unit)}, {format_quantity(hi, unit)}] must "
+                         f"have 0 < min <= max", file=file, key=key, accepted=accepted)
+    return lo, hi
+
+
+def _supply_range(s: Mapping[str, Any], file: str) -> Supply:
+    """voltage = [lo, hi]: nominal is the middle, the corners are the ends."""
+    lo, hi = _pair(s["voltage"], "supply.voltage", file, "V", '["6.6 V", "9.5 V"]')
+    if "tolerance" in s:
+        raise StageError("is not allowed with a supply range: the range already says how "
+                         "far the supply moves", file=file, key="supply.tolerance",
+                         accepted='either voltage = "9 V" with tolerance = "5 %", or '
+                         'voltage = ["6.6 V", "9.5 V"] alone')
+    mid = 0.5 * (lo + hi)
+    return Supply(voltage=mid, tolerance=(hi - lo) / (hi + lo), range=(lo, hi))
+
+
+def _scalar_bounds(r: Mapping[str, Any]) -> dict[str, Any]:
+    """The [require] table with z_in / z_out ranges reduced to the bound the scalar key
+    means (z_in: the lower, z_out: the upper) and the keys read elsewhere taken out."""
+    out = dict(r)
+    for key, end in (("z_in", 0), ("z_out", -1)):
+        if isinstance(out.get(key), list | tuple) and len(out[key]) == 2:
+            out[key] = out[key][end]
+    out.pop("return_loss", None)
+    return out
+
+
+def _ranges_and_match(req: Requirements, r: Mapping[str, Any], source: Source,
+                      file: str) -> Requirements:
+    """z_in / z_out ranges and return_loss, added to the requirements read by key."""
+    values: dict[str, Any] = {}
+    for key, example in (("z_in", '["300 Ω", "360 Ω"]'), ("z_out", '["68 Ω", "82 Ω"]')):
+        if isinstance(r.get(key), list | tuple):
+            lo, hi = _pair(r[key], f"require.{key}", file, "Ω", example)
+            values["z_in_max" if key == "z_in" else "z_out_min"] = hi if key == "z_in" else lo
+    if "return_loss" in r:
+        rl = parse_db(r["return_loss"], key="require.return_loss", file=file)
+        if not rl > 0:
+            raise StageError(f"must be greater than 0 dB, got {rl:g} dB", file=file,
+                             key="require.return_loss", accepted="e.g. '15 dB' or '20 dB'")
+        if source.resistance <= 0:
+            raise StageError("needs a source resistance to match: [source] resistance is 0",
+                             file=file, key="require.return_loss",
+                             accepted='[source] resistance = "600 Ω" (the line or filter '
+                             "the input terminates)")
+        values["return_loss"] = rl
+    return dataclasses.replace(req, **values) if values else req
 
 
 def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
@@ -595,4 +676,29 @@ def spec_to_toml(spec: Spec) -> str:
               f"resistor_tolerance = {_q(p.resistor_tolerance, '%')}",
               f"capacitors = {_toml_str(p.capacitors)}",
               f"capacitor_tolerance = {_q(p.capacitor_tolerance, '%')}"]
-    return "\n".join(lines) + "\n"
+    return "\n".join(_with_ranges(spec, lines)) + "\n"
+
+
+def _with_ranges(spec: Spec, lines: list[str]) -> list[str]:
+    """Write a supply range, impedance ranges and return_loss as the user wrote them."""
+    r, out = spec.require, list(lines)
+
+    def swap(prefix: str, new: str | None) -> None:
+        i = next(i for i, line in enumerate(out) if line.startswith(prefix))
+        if new is None:
+            del out[i]
+        else:
+            out[i] = new
+
+    if spec.supply.range is not None:
+        lo, hi = spec.supply.range
+        swap("voltage = ", f"voltage = [{_q(lo, 'V')}, {_q(hi, 'V')}]")
+        swap("tolerance = ", None)
+    if r.z_in_max is not None:
+        swap("z_in = ", f"z_in = [{_q(r.z_in, 'Ω')}, {_q(r.z_in_max, 'Ω')}]")
+    if r.z_out_min is not None and r.z_out is not None:
+        swap("z_out = ", f"z_out = [{_q(r.z_out_min, 'Ω')}, {_q(r.z_out, 'Ω')}]")
+    if r.return_loss is not None:
+        at = out.index("[transistor]") - 1  # the blank line closing [require]
+        out.insert(at, f"return_loss = {_q(r.return_loss, 'dB')}")
+    return out

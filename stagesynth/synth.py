@@ -335,6 +335,15 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
         return f"allow {_fmt(1.02 * best, 'A')} of supply current"
     if name == "active":
         return "widen the supply, narrow the ambient range or the hFE spread"
+    if name == "z_in_max":
+        return (f"widen the z_in range to {_fmt(1.02 * best, 'Ω')}, or terminate the input "
+                "with a resistor of the wanted value in front of a high-impedance stage")
+    if name == "z_out_min":
+        return (f"widen the z_out range down to {_fmt(0.98 * best, 'Ω')}, or add a series "
+                "output resistor (back termination)")
+    if name == "return_loss":
+        return (f"relax return_loss to {best:.1f} dB, or terminate the input with a "
+                "resistor equal to the source resistance")
     if name.endswith(("ic_max", "vce_max", "p_max")):
         return "choose a transistor with higher ratings, or a lower supply"
     return "relax this requirement"

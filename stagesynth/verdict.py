@@ -151,6 +151,7 @@ def assess(
         j = np.argmax(cur, axis=1)
         rows.append(_at_most("supply_current", cur[np.arange(cur.shape[0]), j],
                              r.supply_current, "A", "every corner", j + first_corner))
+    rows.extend(_range_and_match_rows(fig, spec, first_corner))
     if ratings:
         rows.extend(_rating_rows(fig, circuit, corners))
     return rows
@@ -179,6 +180,28 @@ def _worst_row(kind, name: str, values: np.ndarray, limit: float, unit: str,
     """A bound judged at every condition in `values` (K, C): the worst one decides."""
     j = _pick(values, np.argmax if kind is _at_most else np.argmin)
     return kind(name, _take(values, j), limit, unit, WORST_WHERE, judged[j])
+
+
+def _range_and_match_rows(fig: Figures, spec: Spec, first_corner: int) -> list[Row]:
+    """The upper edge of a z_in range, the lower edge of a z_out range and the return
+    loss over the band: each judged at nominal and every corner, worst taken."""
+    r = spec.require
+    rows: list[Row] = []
+    judged = _judged(fig.supply_current.shape[1], first_corner)
+    if r.z_in_max is not None:
+        rows.append(_worst_row(_at_most, "z_in_max", fig.z_in[:, judged], r.z_in_max, "Ω",
+                               judged))
+    if r.z_out_min is not None:
+        rows.append(_worst_row(_at_least, "z_out_min", fig.z_out[:, judged], r.z_out_min, "Ω",
+                               judged))
+    if r.return_loss is not None and fig.system is not None:
+        from .match import worst_return_loss
+
+        k, m = fig.supply_current.shape
+        rl = worst_return_loss(fig.system, spec.source.resistance, (r.f_low, r.f_high))
+        rows.append(_worst_row(_at_least, "return_loss", rl.reshape(k, m)[:, judged],
+                               r.return_loss, "dB", judged))
+    return rows
 
 
 TJ_MAX_DEFAULT = 150.0  # degC, common practice for small-signal silicon without a figure
