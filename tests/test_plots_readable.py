@@ -8,7 +8,6 @@ bin width, and headless Chromium rendering the HTML report's inline SVG.
 
 from __future__ import annotations
 
-import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -18,7 +17,7 @@ import numpy as np
 import pytest
 
 sys.path.insert(0, str(Path(__file__).parent))
-from test_report import CHROMIUM, DESIGN, SPEC
+from test_report import DESIGN, SPEC, chromium
 
 from stagesynth.analysis import analyze
 from stagesynth.netlist import design_from_dict
@@ -145,8 +144,7 @@ def test_bode_masks_look_the_same_in_a_browser(analysis, tmp_path):
                     "<style>svg{width:860px;height:700px;display:block}</style>"
                     + inline_svg(svg, "fig-bode", "Bode") + "</body></html>", encoding="utf-8")
     shot = tmp_path / "shot.png"
-    chromium = CHROMIUM if Path(CHROMIUM).exists() else shutil.which("chromium")
-    subprocess.run([chromium, "--headless", "--no-sandbox", "--disable-gpu",
+    subprocess.run([chromium(), "--headless", "--no-sandbox", "--disable-gpu",
                     "--hide-scrollbars", f"--screenshot={shot}", "--window-size=860,700",
                     page.as_uri()], capture_output=True, timeout=120, check=True)
     ref = (mpimg.imread(png) * 255).round().astype(int)
