@@ -125,7 +125,7 @@ def _requirements(verdict: Verdict) -> Table:
         rows.append((c.name, check_value(c), limit, margin_text(c), status_text(c),
                      c.condition or c.where, "pass" if c.ok else "FAIL", c.detail))
     return Table(("requirement", "value", "limit", "margin", "status", "worst at", "result",
-                  "detail"), tuple(rows), numeric=(1, 3), status=6)
+                  "detail"), tuple(rows), numeric=(1, 2, 3), status=6)
 
 
 def _circuit_text(design: Design, analysis: Analysis) -> list[str]:
