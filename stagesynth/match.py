@@ -15,6 +15,8 @@ import numpy as np
 from .ac import AcSystem
 
 POINTS_PER_DECADE = 32  # grid density over the band; RL is smooth between poles
+SCREEN_PER_DECADE = 4  # for large batches (candidate search, Monte Carlo): ends + midband
+LARGE_BATCH = 256  # members above which the screening grid is used
 
 
 def band_grid(f_low: float, f_high: float, per_decade: int = POINTS_PER_DECADE) -> np.ndarray:
@@ -32,9 +34,19 @@ def return_loss_db(z_in: np.ndarray, rs: float) -> np.ndarray:
         return np.where(gamma > 0, -20.0 * np.log10(gamma), np.inf)
 
 
-def worst_return_loss(system: AcSystem, rs: float, band: tuple[float, float]) -> np.ndarray:
-    """(B,) the smallest return loss over `band` of each member of `system` (dB)."""
-    f = band_grid(*band)
+def worst_return_loss(system: AcSystem, rs: float, band: tuple[float, float],
+                      per_decade: int | None = None) -> np.ndarray:
+    """(B,) the smallest return loss over `band` of each member of `system` (dB).
+
+    A single design (or a few) is judged on the fine grid; a large batch (the search's
+    candidates, Monte Carlo units) on a coarse one that keeps both band ends and the
+    midband, where a coupled stage's match is worst or best: the written design is
+    judged again on the fine grid by `analyze`.
+    """
+    if per_decade is None:
+        per_decade = POINTS_PER_DECADE if system.batch <= LARGE_BATCH else SCREEN_PER_DECADE
+    f = band_grid(*band, per_decade)
+    f = np.unique(np.append(f, math.sqrt(band[0] * band[1])))
     z = system.z_in(np.broadcast_to(f, (system.batch, f.size)))
     return np.min(return_loss_db(z, rs), axis=1)
 
