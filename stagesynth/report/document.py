@@ -131,6 +131,10 @@ def _requirements(verdict: Verdict) -> Table:
 def _circuit_text(design: Design, analysis: Analysis) -> list[str]:
     env = analysis.environment
     tol = (f" ± {format_quantity(env.supply_tolerance, '%')}" if env.supply_tolerance else "")
+    if env.supply_tolerance:  # the span it covers, as a battery range is written
+        v = design.supply_voltage
+        tol += (f" ({fmt(v * (1 - env.supply_tolerance), 'V')} … "
+                f"{fmt(v * (1 + env.supply_tolerance), 'V')})")
     load = fmt(design.load_resistance, "Ω")
     if design.load_capacitance > 0:
         load += f" ∥ {fmt(design.load_capacitance, 'F')}"
