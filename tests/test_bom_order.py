@@ -104,3 +104,14 @@ def test_without_spec_the_recorded_tolerance_is_used(twin):
     rows = _read(bom_csv(recorded, analysis))
     assert {r["tolerance"] for r in rows if r["part"] == "resistor"} == {"1 %"}
     assert {r["tolerance"] for r in rows if r["part"] == "capacitor"} == {"20 %"}
+
+
+def test_dielectric_follows_common_practice():
+    """Common practice: C0G up to 1 nF, film above in an audio-range path; a band above
+    1 MHz takes ceramic only (C0G to 10 nF, X7R above) since film parts are inductive."""
+    from stagesynth.report.bom import dielectric
+
+    assert dielectric(560e-12).startswith("ceramic C0G")
+    assert dielectric(4.7e-9, 20e3).startswith("film")
+    assert dielectric(4.7e-9, 10.7e6).startswith("ceramic C0G")
+    assert dielectric(100e-9, 10.7e6).startswith("ceramic X7R")

@@ -141,7 +141,8 @@ def _capacitor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, 
         note = ("DC voltage across it is tiny or changes sign: a polarized part would be "
                 "barely biased, so a non-polar type is safer")
     else:
-        kind = dielectric(float(part.value))
+        band = analysis.environment.band
+        kind = dielectric(float(part.value), band[1] if band else analysis.f_high)
         note = f"rating ≥ {DERATING:g}× the highest DC voltage (common practice)"
     return {
         "dc_voltage_max": format_quantity(worst, "V") if worst is not None else "n/a",
@@ -152,12 +153,19 @@ def _capacitor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, 
     }
 
 
-def dielectric(value: float) -> str:
+RF_FROM = 1e6  # Hz: a band reaching above this wants ceramic, not film (lead inductance)
+
+
+def dielectric(value: float, f_top: float = 0.0) -> str:
     """A non-electrolytic capacitor's dielectric for a signal path (common practice): C0G
     ceramic (no voltage or temperature coefficient to speak of) up to 1 nF, film above,
-    where class-2 ceramics (X7R) would add distortion through their voltage coefficient."""
-    if value <= 1e-9:
+    where class-2 ceramics (X7R) would add distortion through their voltage coefficient.
+    A stage whose band reaches above RF_FROM takes ceramic throughout (a film part's
+    inductance resonates there): C0G up to 10 nF, X7R above."""
+    if value <= 1e-9 or (f_top > RF_FROM and value <= 10e-9):
         return "ceramic C0G/NP0"
+    if f_top > RF_FROM:
+        return "ceramic X7R (coupling or bypass)"
     return "film (polyester or polypropylene)"
 
 
