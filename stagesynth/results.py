@@ -70,7 +70,10 @@ def analysis_to_dict(analysis: Analysis, verdict: Verdict | None = None) -> dict
     _add_return_loss(out, analysis)
     if verdict is not None:
         out["meets_spec"] = verdict.meets_spec
-        out["checks"] = [c.to_dict() for c in verdict.checks]
+        from .textout import margin_text, status_text
+
+        out["checks"] = [{**c.to_dict(), "margin_text": margin_text(c), "status": status_text(c)}
+                         for c in verdict.checks]
     return out
 
 

@@ -170,3 +170,18 @@ def test_infeasible_summary_agrees_with_the_design_it_wrote(tmp_path):
                           capture_output=True, text=True, env=env)
     swing = json.loads(back.stdout)["swing_vpp"]
     assert m.group(1) == format_quantity(swing, "V")
+
+
+def test_json_checks_carry_the_readable_margin(judged):
+    """analyze --json: each check has its headroom in its own unit and the status words,
+    "ok" exactly where it passes (spec-format.md section 4: `ok` per check)."""
+    from stagesynth.results import analysis_to_dict
+
+    _, analysis, verdict = judged
+    out = analysis_to_dict(analysis, verdict)
+    for c in out["checks"]:
+        assert (c["status"] == "ok") == c["ok"], c
+        assert c["margin_text"] and "%" not in c["margin_text"].replace("% points", "")
+    swing = next(c for c in out["checks"] if c["name"] == "swing")
+    assert swing["headroom"] == pytest.approx(swing["value"] - swing["limit"])
+    assert swing["headroom_unit"] == "Vpp"
