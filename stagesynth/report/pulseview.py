@@ -12,6 +12,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from ..textout import fmt
+from ..units import format_number, format_quantity
 from .document import Figure as DocFigure
 from .document import Section, Table
 from .plots import BLUE, GRID_MINOR, INK, ORANGE, _new_figure, eng_label
@@ -66,11 +67,11 @@ def pulse_section(p: PulseResponse) -> Section:
         return fmt(x, "s") if math.isfinite(x) else "beyond the window"
 
     rows = (
-        ("flat top (gain after the edge)", f"{p.flat_top:.4g} V/V"),
+        ("flat top (gain after the edge)", format_quantity(p.flat_top, "V/V", 4)),
         ("rise time, 10–90 %", time(p.rise_time)),
         ("overshoot", f"{100 * p.overshoot:.2f} %"),
         ("settling to 1 %", time(p.settling_time)),
-        (f"tilt of a {fmt(p.width, 's')} pulse", f"{100 * p.tilt:.3g} %"),
+        (f"tilt of a {fmt(p.width, 's')} pulse", f"{format_number(100 * p.tilt)} %"),
     )
     return Section("Pulse response", (
         "Small-signal response at the load to a step and to a pulse of the source EMF "
