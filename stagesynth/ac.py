@@ -38,6 +38,7 @@ class AcSystem:
     source_resistance: np.ndarray  # (B,)
     load_resistance: np.ndarray  # (B,)
     load_capacitance: np.ndarray  # (B,)
+    source_capacitance: np.ndarray | None = None  # (B,) in series with the EMF; 0: none
 
     @property
     def batch(self) -> int:
@@ -61,6 +62,17 @@ class AcSystem:
             f = np.broadcast_to(f, (self.batch, f.size))
         return f
 
+    def _source_admittance(self, f: np.ndarray) -> np.ndarray | None:
+        """(B, F) admittance of the source branch, Rs in series with Cs; None without Cs."""
+        cs = self.source_capacitance
+        if cs is None or not np.any(cs > 0):
+            return None
+        w = 2.0 * math.pi * f
+        with np.errstate(divide="ignore"):
+            zc = np.where(cs[:, None] > 0, 1.0 / (1j * w * np.where(cs > 0, cs, 1.0)[:, None]),
+                          0.0)
+        return 1.0 / (self.source_resistance[:, None] + zc)
+
     # -- measurements ----------------------------------------------------------
     def node_voltages(self, freqs: np.ndarray) -> np.ndarray:
         """Node voltages (B, F, n) per volt of source EMF, source and load attached."""
@@ -69,6 +81,12 @@ class AcSystem:
         i_in = self.circuit.input
         n = self.circuit.n
         rs = self.source_resistance
+        ys = self._source_admittance(f)
+        if ys is not None:  # EMF behind Rs and Cs in series: a Norton source
+            y[:, :, i_in, i_in] += ys
+            rhs = np.zeros(y.shape[:3], dtype=complex)
+            rhs[:, :, i_in] = ys
+            return np.linalg.solve(y, rhs[..., None])[..., 0]
         if np.all(rs > 0):
             gs = (1.0 / rs)[:, None]
             y[:, :, i_in, i_in] += gs
@@ -101,6 +119,10 @@ class AcSystem:
         y = self._y(f, load=False)
         i_in = self.circuit.input
         rs = self.source_resistance
+        ys = self._source_admittance(f)
+        if ys is not None:
+            y[:, :, i_in, i_in] += ys
+            return self._driving_point(y, self.circuit.output)
         if np.all(rs > 0):
             y[:, :, i_in, i_in] += (1.0 / rs)[:, None]
             return self._driving_point(y, self.circuit.output)
@@ -224,6 +246,8 @@ class AcSystem:
             source_resistance=self.source_resistance[idx],
             load_resistance=self.load_resistance[idx],
             load_capacitance=self.load_capacitance[idx],
+            source_capacitance=None if self.source_capacitance is None
+            else self.source_capacitance[idx],
         )
 
     def _crossing(self, fm: np.ndarray, log_steps: np.ndarray, target: np.ndarray) -> np.ndarray:
@@ -270,6 +294,7 @@ def linearize(
     source_resistance: np.ndarray | float,
     load_resistance: np.ndarray | float,
     load_capacitance: np.ndarray | float,
+    source_capacitance: np.ndarray | float = 0.0,
 ) -> AcSystem:
     """Stamp parts and hybrid-pi transistors at the operating points `dc` into G and C."""
     B = dc.v.shape[0]
@@ -311,6 +336,7 @@ def linearize(
         source_resistance=bc(source_resistance),
         load_resistance=bc(load_resistance),
         load_capacitance=bc(load_capacitance),
+        source_capacitance=bc(source_capacitance),
     )
 
 

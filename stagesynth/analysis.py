@@ -17,7 +17,7 @@ import numpy as np
 from .ac import AcSystem
 from .circuit import Circuit, compile_design
 from .device import T_REF_C
-from .evaluate import Conditions, Figures, evaluate
+from .evaluate import IC_ACTIVE_MIN, Conditions, Figures, evaluate
 from .netlist import Design
 
 
@@ -78,6 +78,7 @@ class TransistorState:
     active: bool
     swing_cut: float  # peak load amplitude that drives it to cutoff
     swing_sat: float  # peak load amplitude that drives it to VCE = vce_sat
+    region: str = "active"  # "active", "saturated", "cut off" or "no DC solution"
 
 
 @dataclass(frozen=True)
@@ -200,6 +201,18 @@ def condition_arrays(circuit: Circuit, conditions: list[Condition]) -> Condition
     )
 
 
+def region(converged: bool, ic: float, vce: float, vce_sat: float) -> str:
+    """Operating region as the contract counts it: cut off below IC = 100 nA (checked
+    first: a starved transistor has no meaningful VCE(sat)), saturated below vce_sat."""
+    if not converged:
+        return "no DC solution"
+    if ic < IC_ACTIVE_MIN:
+        return "cut off"
+    if vce < vce_sat:
+        return "saturated"
+    return "active"
+
+
 def point_results(
     circuit: Circuit, conditions: list[Condition], fig: Figures, k: int = 0
 ) -> list[PointResult]:
@@ -222,17 +235,20 @@ def point_results(
                 tj=float(dc.tj[i, q_i]),
                 hfe=float(dc.hfe[i, q_i]),
                 power=float(dc.power[i, q_i]),
-                active=bool(
-                    dc.converged[i] and dc.vce[i, q_i] >= vce_sat[q_i] and dc.ic[i, q_i] > 0
-                ),
+                active=region(bool(dc.converged[i]), float(dc.ic[i, q_i]),
+                              float(dc.vce[i, q_i]), float(vce_sat[q_i])) == "active",
                 swing_cut=float(fig.a_cut[k, j, q_i]),
                 swing_sat=float(fig.a_sat[k, j, q_i]),
+                region=region(bool(dc.converged[i]), float(dc.ic[i, q_i]),
+                              float(dc.vce[i, q_i]), float(vce_sat[q_i])),
             )
         if fig.active[k, j] and nq:
             e = int(fig.swing_edge[k, j])
             limit = f"{circuit.bjts[e % nq].ref} {'cutoff' if e < nq else 'saturation'}"
         else:
-            limit = "not in the active region" if dc.converged[i] else "no DC solution"
+            out = [f"{ref} {s.region}" for ref, s in states.items() if s.region != "active"]
+            limit = ("not in the active region: " + ", ".join(out)) if dc.converged[i] and out \
+                else ("not in the active region" if dc.converged[i] else "no DC solution")
         results.append(
             PointResult(
                 condition=cond,
@@ -269,6 +285,7 @@ def analyze(design: Design, spec=None, environment: Environment | None = None) -
         source_resistance=design.source_resistance,
         load_resistance=design.load_resistance,
         load_capacitance=design.load_capacitance,
+                   source_capacitance=design.source_capacitance,
         band=env.band,
     )
     points = point_results(circuit, conditions, fig)

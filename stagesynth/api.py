@@ -418,6 +418,7 @@ def _condition_system(analysis: Analysis, condition: int | str):
                    source_resistance=design.source_resistance,
                    load_resistance=design.load_resistance,
                    load_capacitance=design.load_capacitance,
+                   source_capacitance=design.source_capacitance,
                    band=analysis.environment.band, corners="none")
     return fig.nominal
 

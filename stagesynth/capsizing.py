@@ -107,7 +107,8 @@ def size_capacitors(
     refs = [ref for ref, _, _ in circuit.capacitors]
     fig = evaluate(circuit, r, c, conds, source_resistance=design.source_resistance,
                    load_resistance=design.load_resistance,
-                   load_capacitance=design.load_capacitance, band=env.band, corners="none")
+                   load_capacitance=design.load_capacitance,
+                   source_capacitance=design.source_capacitance, band=env.band, corners="none")
     res = shorted_resistances(design, circuit, fig.nominal.G[0])
     share = _shares(res)
     target = f_low * F_LOW_MARGIN
@@ -122,7 +123,8 @@ def size_capacitors(
         f = evaluate(circuit, np.concatenate([rr, rr]), both, conds,
                      source_resistance=design.source_resistance,
                      load_resistance=design.load_resistance,
-                     load_capacitance=design.load_capacitance, band=env.band,
+                     load_capacitance=design.load_capacitance,
+                   source_capacitance=design.source_capacitance, band=env.band,
                      corners="low")
         # worst over nominal and every corner (contract section 2, second release)
         zcache[cap_sets.tobytes()] = np.max(f.z_out[k:], axis=1)  # with the low capacitors

@@ -1,5 +1,7 @@
 """DC operating point of a compiled circuit, batched over conditions.
 
+Both junctions in the Ebers-Moll transport form (the contract's forward-active law,
+plus the base-collector junction so that saturation is a convergent, physical state).
 Newton-Raphson on node voltages with junction-voltage limiting, self-heating
 iterated inside the same loop (Tj = Ta + theta_ja*VCE*IC), and supply stepping
 as a fallback from a cold start. Every batch member gets its own convergence
@@ -43,8 +45,9 @@ class DcBatch:
 
     @property
     def power(self) -> np.ndarray:
-        """Collector dissipation VCE*IC, the figure the self-heating model uses."""
-        return self.vce * self.ic
+        """Collector dissipation VCE*IC, the figure the self-heating model uses (0 where
+        VCE or IC is not positive: a reversed or cut-off transistor heats by neither)."""
+        return np.where((self.vce > 0) & (self.ic > 0), self.vce * self.ic, 0.0)
 
 
 def _limexp(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -68,6 +71,7 @@ class _Model:
         source_resistance: np.ndarray,
         load_resistance: np.ndarray,
         leakage: np.ndarray | None = None,
+        source_capacitance: np.ndarray | None = None,
     ) -> None:
         self.c = circuit
         self.leakage = leakage  # (B, nQ) collector-base leakage ICBO, or None
@@ -78,8 +82,9 @@ class _Model:
         # the load, and the source resistance (the source EMF is 0 V at DC)
         branches.append(("RL", circuit.output, circuit.ground))
         cond.append(1.0 / load_resistance)
-        self.input_fixed = bool(np.all(source_resistance == 0))
-        if not self.input_fixed:
+        blocked = source_capacitance is not None and bool(np.all(source_capacitance > 0))
+        self.input_fixed = bool(np.all(source_resistance == 0)) and not blocked
+        if not self.input_fixed and not blocked:  # a series source capacitor blocks DC
             branches.append(("RS", circuit.input, circuit.ground))
             cond.append(1.0 / np.maximum(source_resistance, 1e-9))
         a = circuit.incidence(tuple(branches))
@@ -101,6 +106,7 @@ class _Model:
         self.va = np.array([q.device.early_voltage for q in self.bjts])
         self.theta = np.array([q.device.theta_ja or 0.0 for q in self.bjts])
         self.vce_sat = np.array([q.device.vce_sat for q in self.bjts])
+        self.beta_r = np.array([q.device.hfe_reverse for q in self.bjts])
 
     def device_params(self, tj: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(IS, VT, hFE) at junction temperatures tj (B, nQ)."""
@@ -135,11 +141,24 @@ class _Model:
         ex, dex = _limexp(at / vt)
         early = 1.0 + vce / self.va
         gm = is_ * dex / vt * early
-        ic = is_ * ex * early
+        i_f = is_ * ex * early  # forward transport current (contract: IC when active)
         if pivot is not None:
-            ic = ic + gm * (vbe - pivot)
+            i_f = i_f + gm * (vbe - pivot)
         go = is_ * ex / self.va
-        ib = ic / hfe
+        # base-collector junction, Ebers-Moll transport form (reverse gain beta_R):
+        # IC = iF - iR (1 + 1/beta_R), IB = iF/hFE + iR/beta_R, with iR = IS exp(VBC/VT);
+        # in the active region iR is ~exp(-VCB/VT) of iF: nothing measurable changes
+        er, der = _limexp((vbe - vce) / vt)
+        i_r = is_ * er
+        g_r = is_ * der / vt  # d iR / d VBC
+        k_r = 1.0 + 1.0 / self.beta_r
+        ic = i_f - i_r * k_r
+        ib = i_f / hfe + i_r / self.beta_r
+        # derivatives: VBC = VBE - VCE
+        dic_dvbe = gm - g_r * k_r
+        dic_dvce = go + g_r * k_r
+        dib_dvbe = gm / hfe + g_r / self.beta_r
+        dib_dvce = go / hfe - g_r / self.beta_r
         for k, q in enumerate(self.bjts):
             s = q.device.sign
             # base current flows through r_bb between b and b'
@@ -152,10 +171,9 @@ class _Model:
                 J[:, q.bi, q.b] -= gx
                 J[:, q.bi, q.bi] += gx
             terms = (q.c, q.bi, q.e)
-            h = hfe[:, k]
             i_loc = (ic[:, k], ib[:, k], -(ic[:, k] + ib[:, k]))
-            d_vbe = (gm[:, k], gm[:, k] / h, -gm[:, k] * (1.0 + 1.0 / h))
-            d_vce = (go[:, k], go[:, k] / h, -go[:, k] * (1.0 + 1.0 / h))
+            d_vbe = (dic_dvbe[:, k], dib_dvbe[:, k], -(dic_dvbe[:, k] + dib_dvbe[:, k]))
+            d_vce = (dic_dvce[:, k], dib_dvce[:, k], -(dic_dvce[:, k] + dib_dvce[:, k]))
             if self.leakage is not None:  # ICBO: into the collector, out of the base
                 F[:, q.c] += s * self.leakage[:, k]
                 F[:, q.bi] -= s * self.leakage[:, k]
@@ -165,7 +183,8 @@ class _Model:
                 J[:, node, q.bi] += d_vbe[t]
                 J[:, node, q.e] -= d_vbe[t] + d_vce[t]
                 J[:, node, q.c] += d_vce[t]
-        return F, J, dict(ic=ic, ib=ib, vbe=vbe, vce=vce, hfe=hfe, vt=vt, is_=is_, gm=gm, go=go)
+        return F, J, dict(ic=ic, ib=ib, vbe=vbe, vce=vce, hfe=hfe, vt=vt, is_=is_,
+                          gm=dic_dvbe, go=dic_dvce)
 
 
 def _newton(
@@ -249,14 +268,16 @@ def _newton(
         step[:, free] = dx[:, :nf]
         dtj = dx[:, nf:]
         # junction limiting: above vcrit a junction may grow by VT*ln(1 + dV/VT)
-        vbe_new, _ = model.junctions(v + step)
-        dvbe = vbe_new - q["vbe"]
+        vbe_new, vce_new = model.junctions(v + step)
         vt = q["vt"]
-        limit = np.where(
-            (vbe_new > vcrit) & (dvbe > 2.0 * vt),
-            vt * np.log1p(np.maximum(dvbe, 0.0) / vt) / np.where(dvbe > 0, dvbe, 1.0),
-            1.0,
-        )
+        limit = np.ones_like(vbe_new)
+        for new, old in ((vbe_new, q["vbe"]), (vbe_new - vce_new, q["vbe"] - q["vce"])):
+            dj = new - old  # the base-emitter, then the base-collector junction
+            limit = np.minimum(limit, np.where(
+                (new > vcrit) & (dj > 2.0 * vt),
+                vt * np.log1p(np.maximum(dj, 0.0) / vt) / np.where(dj > 0, dj, 1.0),
+                1.0,
+            ))
         # keep any node from jumping more than the supply, and Tj by 50 K, in one step
         span = np.max(np.abs(step), axis=1) / np.maximum(np.abs(model.supply), 1.0)
         tspan = np.max(np.abs(dtj), axis=1, initial=0.0) / 50.0
@@ -294,11 +315,14 @@ def solve_dc(
     *,
     leakage: np.ndarray | None = None,
     max_iter: int = 200,
+    source_capacitance: float = 0.0,
 ) -> DcBatch:
     """Operating points for B conditions at once.
 
     r_values (B, nR) in circuit.resistors order; supply, ambient (B,); hfe25 (B, nQ);
     leakage (B, nQ), optional: a collector-base leakage current ICBO per transistor.
+    The source (EMF 0 V behind its resistance) and the load are part of the DC circuit;
+    a `source_capacitance` > 0 in series with the source blocks its DC path.
     Cold start from a tangent-model step at each device's datasheet VBE; members
     that have not converged after a few dozen iterations continue on their own,
     and any still failing are retried by stepping the supply up from 10 %.
@@ -314,6 +338,7 @@ def solve_dc(
         np.broadcast_to(np.asarray(source_resistance, dtype=float), (B,)),
         np.broadcast_to(np.asarray(load_resistance, dtype=float), (B,)),
         None if leakage is None else np.asarray(leakage, dtype=float).reshape(B, nq),
+        np.full(B, float(source_capacitance)),
     )
 
     def model_for(idx: np.ndarray) -> _Model:

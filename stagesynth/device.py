@@ -51,6 +51,11 @@ class Device:
     vbe_tempco: float = -2e-3
     hfe_tempco: float = 5e-3
     name: str = ""
+    # second release (contract section 2): the charge-control capacitance model and the
+    # base-collector junction of the DC solution
+    ft_current: float | None = None  # collector current at which `ft` is stated
+    c_je: float = 0.0  # zero-bias base-emitter junction capacitance
+    hfe_reverse: float = 1.0  # reverse current gain of the Ebers-Moll transport model
 
     @property
     def sign(self) -> int:
@@ -117,8 +122,30 @@ class HybridPi:
     r_x: float
 
 
+def forward_transit_time(device: Device) -> float | None:
+    """tau_F = max(1/(2 pi fT) - (c_je + c_cb)/gm_ft, 0), gm_ft = ft_current/VT(25 degC).
+
+    The charge-control model (Gray, Hurst, Lewis & Meyer, device-model chapter): fT is
+    stated at `ft_current`, where the junction capacitances take their share of the
+    transit; None without `ft_current` (then fT counts as constant).
+    """
+    if device.ft_current is None:
+        return None
+    gm_ft = device.ft_current / thermal_voltage(T_REF_C)
+    return max(1.0 / (2.0 * math.pi * device.ft) - (device.c_je + device.c_cb) / gm_ft, 0.0)
+
+
+def c_pi_of(device: Device, gm):
+    """Cpi at transconductance gm: gm*tau_F + c_je with `ft_current`, else
+    max(gm/(2 pi fT) - Cmu, 0) (fT constant), as contract section 2 says."""
+    tau = forward_transit_time(device)
+    if tau is None:
+        return np.maximum(gm / (2.0 * math.pi * device.ft) - device.c_cb, 0.0)
+    return gm * tau + device.c_je
+
+
 def hybrid_pi(device: Device, ic, vce, hfe, tj_c) -> HybridPi:
-    """gm = IC/VT, r_pi = hFE/gm, ro = (VA+VCE)/IC, Cpi = max(gm/(2 pi fT) - Cmu, 0).
+    """gm = IC/VT, r_pi = hFE/gm, ro = (VA+VCE)/IC, Cpi from `c_pi_of`.
 
     `ic` and `vce` are polarity-normalized (positive in the active region); `hfe` is
     the DC gain at the junction temperature `tj_c`. Works elementwise on arrays.
@@ -129,8 +156,8 @@ def hybrid_pi(device: Device, ic, vce, hfe, tj_c) -> HybridPi:
     return HybridPi(
         gm=gm,
         r_pi=hfe / gm,
-        r_o=(device.early_voltage + np.asarray(vce)) / ic_eff,
-        c_pi=np.maximum(gm / (2.0 * math.pi * device.ft) - device.c_cb, 0.0),
+        r_o=(device.early_voltage + np.maximum(np.asarray(vce), 0.0)) / ic_eff,
+        c_pi=c_pi_of(device, gm),
         c_mu=device.c_cb,
         r_x=device.r_bb,
     )
@@ -156,6 +183,8 @@ PRESETS: dict[str, Device] = {
         vce_max=40.0,
         p_max=0.5,
         theta_ja=250.0,
+        ft_current=10e-3,
+        c_je=8e-12,
     ),
     "generic-pnp": Device(
         name="generic-pnp",
@@ -174,6 +203,8 @@ PRESETS: dict[str, Device] = {
         vce_max=40.0,
         p_max=0.5,
         theta_ja=250.0,
+        ft_current=10e-3,
+        c_je=10e-12,
     ),
     "lownoise-npn": Device(
         name="lownoise-npn",
@@ -192,6 +223,8 @@ PRESETS: dict[str, Device] = {
         vce_max=45.0,
         p_max=0.5,
         theta_ja=250.0,
+        ft_current=2e-3,
+        c_je=9e-12,
     ),
     "rf-npn": Device(
         name="rf-npn",
@@ -210,5 +243,7 @@ PRESETS: dict[str, Device] = {
         vce_max=12.0,
         p_max=0.25,
         theta_ja=400.0,
+        ft_current=10e-3,
+        c_je=1.2e-12,
     ),
 }

@@ -18,6 +18,8 @@ from .ac import AcSystem, linearize
 from .circuit import Circuit
 from .dc import DcBatch, solve_dc
 
+IC_ACTIVE_MIN = 100e-9  # A: below this collector current a transistor counts as cut off
+
 
 @dataclass(frozen=True)
 class Conditions:
@@ -103,6 +105,7 @@ def evaluate(
     band: tuple[float, float] | None,
     corners: str = "both",
     corner_guess: tuple[float, float] | None = None,
+    source_capacitance: float = 0.0,
 ) -> Figures:
     """Figures for K value sets (rows of r_values, c_values) at every condition.
 
@@ -122,9 +125,11 @@ def evaluate(
     r_rep = np.repeat(r_values, m, axis=0)
     c_rep = np.repeat(c_values, m, axis=0)
     supply, ambient, hfe25 = conditions.expand(k)
-    dc = solve_dc(circuit, r_rep, supply, hfe25, ambient, source_resistance, load_resistance)
+    dc = solve_dc(circuit, r_rep, supply, hfe25, ambient, source_resistance, load_resistance,
+                  source_capacitance=source_capacitance)
     system = linearize(
-        circuit, dc, r_rep, c_rep, source_resistance, load_resistance, load_capacitance
+        circuit, dc, r_rep, c_rep, source_resistance, load_resistance, load_capacitance,
+        source_capacitance,
     )
     first = np.arange(k) * m
     nominal = _members(system, first)
@@ -143,7 +148,8 @@ def evaluate(
     # swing at every condition (section 2): cutoff or saturation, whichever comes first
     ic_ratio, vce_ratio = system.swing_ratios_of(v_mid)
     vce_sat = np.array([q.device.vce_sat for q in circuit.bjts])
-    q_active = (dc.vce >= vce_sat) & (dc.ic > 0) & dc.converged[:, None]
+    # contract section 2 (second release): active only with VCE >= vce_sat and IC >= 100 nA
+    q_active = (dc.vce >= vce_sat) & (dc.ic >= IC_ACTIVE_MIN) & dc.converged[:, None]
     with np.errstate(divide="ignore", invalid="ignore"):
         a_cut = np.where(ic_ratio > 0, dc.ic / ic_ratio, np.inf)
         a_sat = np.where(vce_ratio > 0, (dc.vce - vce_sat) / vce_ratio, np.inf)

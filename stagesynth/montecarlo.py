@@ -109,6 +109,7 @@ def _judge_chunk(design, spec, circuit, sample: Sample, ambients, guess) -> tupl
         source_resistance=design.source_resistance,
         load_resistance=design.load_resistance,
         load_capacitance=design.load_capacitance,
+                   source_capacitance=design.source_capacitance,
         band=(spec.require.f_low, spec.require.f_high),
         corner_guess=guess,
     )

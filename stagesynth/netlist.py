@@ -39,9 +39,13 @@ _DEVICE_FLOAT_KEYS = (
     "theta_ja",
     "vbe_tempco",
     "hfe_tempco",
+    # second release (contract section 2)
+    "ft_current",
+    "c_je",
+    "hfe_reverse",
 )
 _SIGNED_DEVICE_KEYS = ("vbe_tempco", "hfe_tempco")
-_ZERO_OK_DEVICE_KEYS = ("r_bb", "vce_sat")
+_ZERO_OK_DEVICE_KEYS = ("r_bb", "vce_sat", "c_je")
 
 
 @dataclass(frozen=True)
@@ -88,6 +92,7 @@ class Design:
     band: tuple[float, float] | None = None  # requirement band; midband is its geometric mean
     predicted: Mapping[str, Any] = field(default_factory=dict)
     extra: Mapping[str, Any] = field(default_factory=dict)
+    source_capacitance: float = 0.0  # F in series with the source EMF; 0: none
 
     # -- queries -------------------------------------------------------------
     @property
@@ -182,7 +187,9 @@ class Design:
             "supply": {"node": self.supply_node, "voltage": self.supply_voltage},
             "input": self.input,
             "output": self.output,
-            "source": {"resistance": self.source_resistance},
+            "source": {"resistance": self.source_resistance,
+                       **({"capacitance": self.source_capacitance}
+                          if self.source_capacitance > 0 else {})},
             "load": {"resistance": self.load_resistance, "capacitance": self.load_capacitance},
             "parts": [p.to_dict() for p in self.parts],
             "devices": {name: dev.to_design_dict() for name, dev in self.devices.items()},
@@ -346,6 +353,9 @@ def design_from_dict(data: Any, file: str = "<design>") -> Design:
     supply_voltage = r.number(supply, "voltage", "supply")
     source = r.mapping(data, "source", required=False)
     source_r = r.number(source, "resistance", "source", zero_ok=True, default=0.0)
+    source_c = 0.0
+    if source is not None and source.get("capacitance") is not None:
+        source_c = r.number(source, "capacitance", "source")
     load = r.mapping(data, "load")
     load_r = r.number(load, "resistance", "load")
     load_c = r.number(load, "capacitance", "load", zero_ok=True, default=0.0)
@@ -388,6 +398,7 @@ def design_from_dict(data: Any, file: str = "<design>") -> Design:
         load_resistance=load_r,
         source_resistance=source_r,
         load_capacitance=load_c,
+        source_capacitance=source_c,
         supply_node=supply_node,
         input=inp,
         output=out,

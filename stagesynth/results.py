@@ -43,6 +43,7 @@ def point_to_dict(p: PointResult) -> dict[str, Any]:
                 "hfe": s.hfe,
                 "power": s.power,
                 "active": s.active,
+                "region": s.region,
             }
             for ref, s in p.transistors.items()
         },

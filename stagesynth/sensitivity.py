@@ -102,7 +102,8 @@ def spreads(design: Design, spec: Spec) -> tuple[FigureSpread, ...]:
                            supply=supply[:, None])
         fig = evaluate(circuit, r, c, conds, source_resistance=design.source_resistance,
                        load_resistance=design.load_resistance,
-                       load_capacitance=design.load_capacitance, band=env.band,
+                       load_capacitance=design.load_capacitance,
+                   source_capacitance=design.source_capacitance, band=env.band,
                        corner_guess=guess)
         guess = (float(fig.f_low[0, 0]), float(fig.f_high[0, 0]))
         vals = {  # one condition per member: column 0

@@ -47,6 +47,7 @@ class Supply:
 @dataclass(frozen=True)
 class Source:
     resistance: float = 0.0  # ohm, Thevenin resistance of the signal source
+    capacitance: float | None = None  # F in series with the EMF (second release); None: none
 
 
 @dataclass(frozen=True)
@@ -113,7 +114,7 @@ class Spec:
 # ---------------------------------------------------------------------------
 _SECTION_KEYS: dict[str, tuple[str, ...]] = {
     "supply": ("voltage", "tolerance"),
-    "source": ("resistance",),
+    "source": ("resistance", "capacitance"),
     "load": ("resistance", "capacitance"),
     "require": (
         "gain", "gain_tolerance", "f_low", "f_high", "z_in", "swing", "supply_current",
@@ -139,9 +140,15 @@ _DEVICE_QUANTITIES: dict[str, tuple[str, str]] = {
     "theta_ja": ("K/W", ">0"),
     "vbe_tempco": ("V/K", ""),
     "hfe_tempco": ("%/K", ""),
+    # second release, contract section 2: charge-control capacitance model
+    "ft_current": ("A", ">0"),
+    "c_je": ("F", ">=0"),
 }
+# bare-number [transistor] keys (second release): the Ebers-Moll reverse current gain
+_DEVICE_NUMBERS: dict[str, str] = {"hfe_reverse": "a reverse current gain such as 1"}
 DEVICE_KEYS: tuple[str, ...] = (
     "preset", "file", "name", "polarity", "hfe", "hfe_typ", *_DEVICE_QUANTITIES,
+    *_DEVICE_NUMBERS,
 )
 _MAGNITUDE_KEYS = ("vbe", "vce_sat", "vce_max")
 _ALL_SECTIONS = {**_SECTION_KEYS, "transistor": DEVICE_KEYS}
@@ -354,6 +361,11 @@ def device_from_mapping(
                              "as datasheets do for either polarity", file=file, key=where,
                              accepted=f"a positive value such as {format_quantity(-value, unit)}")
         values[key] = _bound(value, rule, file, where, unit, accepted_for(unit))
+    for key, accepted in _DEVICE_NUMBERS.items():
+        if key in data:
+            where = _where(key_prefix, key)
+            values[key] = _bound(parse_number(data[key], key=where, file=file), ">0", file,
+                                 where, "", accepted)
 
     if base is None:
         for key in REQUIRED_DEVICE_KEYS:
@@ -424,6 +436,9 @@ def spec_from_mapping(data: Mapping[str, Any], file: str = "<spec>", *,
 
     src = _table(data, "source", file, required=False)
     source = Source(resistance=_quantity(src, "resistance", "source", file, "Ω", ">=0", 0.0))
+    if "capacitance" in src:  # second release: a capacitance in series with the EMF
+        source = Source(source.resistance,
+                        _quantity(src, "capacitance", "source", file, "F", ">0", None))
 
     ld = _table(data, "load", file, required=True)
     load = Load(
@@ -644,7 +659,9 @@ def spec_to_toml(spec: Spec) -> str:
     lines = [f"title = {_toml_str(spec.title)}", "", "[supply]",
              f"voltage = {_q(spec.supply.voltage, 'V')}",
              f"tolerance = {_q(spec.supply.tolerance, '%')}", "", "[source]",
-             f"resistance = {_q(spec.source.resistance, 'Ω')}", "", "[load]",
+             f"resistance = {_q(spec.source.resistance, 'Ω')}",
+             *([f"capacitance = {_q(spec.source.capacitance, 'F')}"]
+               if spec.source.capacitance is not None else []), "", "[load]",
              f"resistance = {_q(spec.load.resistance, 'Ω')}",
              f"capacitance = {_q(spec.load.capacitance, 'F')}", "", "[require]",
              f"gain = {_gain_text(r.gain)}",
@@ -671,6 +688,8 @@ def spec_to_toml(spec: Spec) -> str:
         value = getattr(d, key)
         if value is not None:
             lines.append(f"{key} = {_q(value, unit)}")
+    for key in _DEVICE_NUMBERS:
+        lines.append(f"{key} = {getattr(d, key)!r}")
     p = spec.parts
     lines += ["", "[parts]", f"resistors = {_toml_str(p.resistors)}",
               f"resistor_tolerance = {_q(p.resistor_tolerance, '%')}",

@@ -123,6 +123,7 @@ class _Search:
                         source_resistance=d.source_resistance,
                         load_resistance=d.load_resistance,
                         load_capacitance=d.load_capacitance,
+                        source_capacitance=d.source_capacitance,
                         band=(self.spec.require.f_low, self.spec.require.f_high),
                         corners="high")
 
@@ -143,6 +144,7 @@ class _Search:
                        source_resistance=d.source_resistance,
                        load_resistance=d.load_resistance,
                        load_capacitance=d.load_capacitance,
+                        source_capacitance=d.source_capacitance,
                        band=(spec.require.f_low, spec.require.f_high), corners="high")
         self.evaluated += k
         rows = assess(fig, spec, self.circuit, first_corner=0)
@@ -169,7 +171,8 @@ class _Search:
         r0[:, i5] = total - FLOOR
         dc = solve_dc(self.circuit, r0, np.repeat(nominal.supply, k),
                       np.repeat(nominal.hfe25, k, axis=0), np.repeat(nominal.ambient, k),
-                      d.source_resistance, d.load_resistance)
+                      d.source_resistance, d.load_resistance,
+                      source_capacitance=d.source_capacitance)
         caps = np.tile(self.c_big, (k, 1))
         fm = np.full((k, 1), self.midband)
 
@@ -178,7 +181,7 @@ class _Search:
             rr[:, i4] = x
             rr[:, i5] = total - x
             sys = linearize(self.circuit, dc, rr, caps, d.source_resistance,
-                            d.load_resistance, d.load_capacitance)
+                            d.load_resistance, d.load_capacitance, d.source_capacitance)
             return 1.0 / np.maximum(np.abs(sys.gain(fm)[:, 0]), 1e-30)
 
         target = 1.0 / (self.spec.require.gain if target_gain is None else target_gain)

@@ -57,8 +57,22 @@ def ref_hfe(dev: Device, hfe25: float, tj_c: float) -> float:
 
 
 def ref_ic(dev: Device, vbe: float, vce: float, tj_c: float) -> float:
-    """IC = IS(Tj)*exp(VBE'/VT)*(1 + VCE/VA), spec-format.md section 2."""
-    return ref_is(dev, tj_c) * math.exp(vbe / vt(tj_c)) * (1.0 + vce / dev.early_voltage)
+    """IC = IS(Tj)*exp(VBE'/VT)*(1 + VCE/VA) - IS*exp(VBC/VT)*(1 + 1/beta_R):
+    spec-format.md section 2, forward law plus the base-collector junction in the
+    Ebers-Moll transport form (Ebers & Moll 1954; Gray & Meyer, device-model chapter;
+    the "-1" terms are left out, as the contract's forward law has none)."""
+    i_s = ref_is(dev, tj_c)
+    i_r = i_s * math.exp(min((vbe - vce) / vt(tj_c), 80.0))
+    forward = i_s * math.exp(vbe / vt(tj_c)) * (1.0 + vce / dev.early_voltage)
+    return forward - i_r * (1.0 + 1.0 / dev.hfe_reverse)
+
+
+def ref_ib(dev: Device, vbe: float, vce: float, tj_c: float, hfe: float) -> float:
+    """IB = IS*exp(VBE'/VT)*(1 + VCE/VA)/hFE + IS*exp(VBC/VT)/beta_R (transport form)."""
+    i_s = ref_is(dev, tj_c)
+    i_r = i_s * math.exp(min((vbe - vce) / vt(tj_c), 80.0))
+    forward = i_s * math.exp(vbe / vt(tj_c)) * (1.0 + vce / dev.early_voltage)
+    return forward / hfe + i_r / dev.hfe_reverse
 
 
 def ref_heat(dev: Device, vbe: float, vce: float, ambient: float, tj: float) -> float:
@@ -69,7 +83,8 @@ def ref_heat(dev: Device, vbe: float, vce: float, ambient: float, tj: float) -> 
     two roots close together, so the engine's Tj is checked, not recomputed.
     """
     theta = dev.theta_ja or 0.0
-    return tj - ambient - theta * max(vce * ref_ic(dev, vbe, vce, tj), 0.0)
+    ic = ref_ic(dev, vbe, vce, tj)
+    return tj - ambient - theta * (vce * ic if vce > 0 and ic > 0 else 0.0)
 
 
 def node_volts(circuit: Circuit, dc: DcBatch, i: int) -> dict[str, float]:
@@ -115,7 +130,7 @@ def reference_flows(
         vce = s * (v[c] - v[e])
         tj = float(dc.tj[i, k])
         ic = ref_ic(dev, vbe, vce, tj)
-        ib = ic / ref_hfe(dev, hfe25[p.ref], tj)
+        ib = ref_ib(dev, vbe, vce, tj, ref_hfe(dev, hfe25[p.ref], tj))
         # NPN: IC enters the collector and IB the base; IE = IC + IB leaves the emitter
         flows[c] += s * ic
         flows[bi] += s * ib

@@ -113,9 +113,14 @@ def _independent_currents(design: dict[str, Any], op: rm.OperatingPoint) -> dict
         vt = k_over_q * (tj + 273.15)
         i_s = dev["vbe_current"] * math.exp(
             -(dev["vbe"] + dev.get("vbe_tempco", -2e-3) * (tj - 25)) / vt)
-        ic = i_s * math.exp(vbe / vt) * (1 + vce / dev.get("early_voltage", 100.0))
+        i_f = i_s * math.exp(vbe / vt) * (1 + vce / dev.get("early_voltage", 100.0))
         hfe = op.conditions.hfe_of(p["device"]) * (1 + dev.get("hfe_tempco", 5e-3) * (tj - 25))
-        ib = ic / hfe
+        # second release: the base-collector junction, Ebers-Moll transport form (Ebers &
+        # Moll 1954), reverse gain hfe_reverse (default 1); negligible when active
+        i_r = i_s * math.exp((vbe - vce) / vt)
+        beta_r = dev.get("hfe_reverse", 1.0)
+        ic = i_f - i_r * (1 + 1 / beta_r)
+        ib = i_f / hfe + i_r / beta_r
         assert t.ic == pytest.approx(ic, rel=1e-9)
         assert t.tj == pytest.approx(tj, abs=1e-6)
         if rbb > 0:

@@ -76,6 +76,7 @@ def make_design(
         load_resistance=spec.load.resistance,
         source_resistance=spec.source.resistance,
         load_capacitance=spec.load.capacitance,
+        source_capacitance=spec.source.capacitance or 0.0,
         title=title or spec.title,
         topology=name + ("-pnp" if pnp else "-npn"),
         band=(r.f_low, r.f_high),

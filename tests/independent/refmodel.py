@@ -52,6 +52,9 @@ class Device:
     vbe_tempco: float
     hfe_tempco: float
     theta_ja: float | None
+    ft_current: float | None = None  # second release: current at which ft is stated
+    c_je: float = 0.0  # second release: zero-bias B-E junction capacitance
+    hfe_reverse: float = 1.0  # second release: Ebers-Moll reverse current gain
 
     @property
     def sign(self) -> float:
@@ -80,6 +83,7 @@ class Circuit:
     input: str
     output: str
     source_resistance: float
+    source_capacitance: float  # 0 when the source has none (second release)
     load_resistance: float
     load_capacitance: float
     resistors: tuple[tuple[str, str, str, float], ...]
@@ -119,6 +123,9 @@ def device_from_dict(d: Mapping[str, Any]) -> Device:
         vbe_tempco=_num(d, "vbe_tempco", -2e-3),
         hfe_tempco=_num(d, "hfe_tempco", 5e-3),
         theta_ja=None if d.get("theta_ja") is None else float(d["theta_ja"]),
+        ft_current=None if d.get("ft_current") is None else float(d["ft_current"]),
+        c_je=_num(d, "c_je", 0.0),
+        hfe_reverse=_num(d, "hfe_reverse", 1.0),
     )
 
 
@@ -147,6 +154,7 @@ def circuit_from_design(design: Mapping[str, Any]) -> Circuit:
         input=design["input"],
         output=design["output"],
         source_resistance=float(design.get("source", {}).get("resistance", 0.0)),
+        source_capacitance=float(design.get("source", {}).get("capacitance") or 0.0),
         load_resistance=float(load["resistance"]),
         load_capacitance=float(load.get("capacitance", 0.0)),
         resistors=tuple(res),
@@ -245,7 +253,8 @@ class _DcSystem:
         idx = {n: i for i, n in enumerate(self.nodes)}
         self.idx = idx
         fixed = {cir.ground: 0.0, cir.supply_node: cond.supply}
-        if cir.source_resistance == 0.0:
+        blocked = cir.source_capacitance > 0  # a series capacitor: no DC path to the source
+        if cir.source_resistance == 0.0 and not blocked:
             fixed[cir.input] = 0.0  # the source at DC: its resistance to ground, EMF 0 V
         self.fixed_idx = np.array([idx[n] for n in fixed], dtype=int)
         self.fixed_val = np.array(list(fixed.values()))
@@ -256,7 +265,7 @@ class _DcSystem:
             dev = cir.devices[q.device]
             if dev.r_bb > 0:
                 two.append((idx[q.b], idx[internal_base(q, dev)], 1.0 / dev.r_bb))
-        if cir.source_resistance > 0:
+        if cir.source_resistance > 0 and not blocked:
             two.append((idx[cir.input], idx[cir.ground], 1.0 / cir.source_resistance))
         two.append((idx[cir.output], idx[cir.ground], 1.0 / cir.load_resistance))
         two += [(i, idx[cir.ground], GMIN) for i in self._floating(two, cir)]
@@ -305,28 +314,45 @@ class _DcSystem:
         return v, tj
 
     def device_state(self, v: np.ndarray, tj: np.ndarray) -> list[dict[str, float]]:
-        """Per transistor: vbe', vce, IC, IB and their partial derivatives (mirrored for PNP)."""
+        """Per transistor: vbe', vce, IC, IB and their partial derivatives (mirrored for PNP).
+
+        Both junctions in the Ebers-Moll transport form (second release): the forward
+        current iF = IS*exp(VBE'/VT)*(1 + VCE/VA) is the contract's active-region IC;
+        the base-collector junction adds iR = IS*exp(VBC/VT), so that
+        IC = iF - iR*(1 + 1/beta_R) and IB = iF/hFE + iR/beta_R.
+        """
         out = []
         kq = K_BOLTZMANN / Q_ELECTRON
         for k, d in enumerate(self.devs):
             p = d.sign
             vbe = p * (v[self.qb[k]] - v[self.qe[k]])
             vce = p * (v[self.qc[k]] - v[self.qe[k]])
+            vbc = vbe - vce
             t = tj[k]
             vt = float(thermal_voltage(t))
             vbe_t = d.vbe + d.vbe_tempco * (t - 25.0)
             expo = math.exp(min(vbe / vt - vbe_t / vt, 200.0))
+            expr = math.exp(min(vbc / vt - vbe_t / vt, 200.0))
             early = 1.0 + vce / d.early_voltage
-            ic = d.vbe_current * expo * early
+            i_f = d.vbe_current * expo * early
+            i_r = d.vbe_current * expr
+            br = d.hfe_reverse
             h = float(hfe_at(self.hfe25[k], d, t))
-            dic_dvbe = ic / vt
-            dic_dvce = d.vbe_current * expo / d.early_voltage
-            dic_dt = ic * (-d.vbe_tempco / vt + (vbe_t - vbe) * kq / vt**2)
-            dib_dt = dic_dt / h - ic * self.hfe25[k] * d.hfe_tempco / h**2
-            out.append(
-                dict(p=p, vbe=vbe, vce=vce, ic=ic, ib=ic / h, h=h, vt=vt, t=t,
-                     dvbe=dic_dvbe, dvce=dic_dvce, dt=dic_dt, dibt=dib_dt)
-            )
+            ic = i_f - i_r * (1.0 + 1.0 / br)
+            ib = i_f / h + i_r / br
+            g_f = i_f / vt  # d iF / d VBE
+            go = d.vbe_current * expo / d.early_voltage  # d iF / d VCE
+            g_r = i_r / vt  # d iR / d VBC
+            dif_dt = i_f * (-d.vbe_tempco / vt + (vbe_t - vbe) * kq / vt**2)
+            dir_dt = i_r * (-d.vbe_tempco / vt + (vbe_t - vbc) * kq / vt**2)
+            out.append(dict(
+                p=p, vbe=vbe, vce=vce, ic=ic, ib=ib, h=h, vt=vt, t=t,
+                # VBC = VBE - VCE
+                dic_vbe=g_f - g_r * (1.0 + 1.0 / br), dic_vce=go + g_r * (1.0 + 1.0 / br),
+                dib_vbe=g_f / h + g_r / br, dib_vce=go / h - g_r / br,
+                dt=dif_dt - dir_dt * (1.0 + 1.0 / br),
+                dibt=dif_dt / h - i_f * self.hfe25[k] * d.hfe_tempco / h**2 + dir_dt / br,
+            ))
         return out
 
     def full_kcl(self, v: np.ndarray, tj: np.ndarray) -> np.ndarray:
@@ -351,7 +377,7 @@ class _DcSystem:
         tres = np.zeros(nt)
         for k, s in enumerate(states):
             p, c, b, e = s["p"], self.qc[k], self.qb[k], self.qe[k]
-            ic, ib, h = s["ic"], s["ib"], s["h"]
+            ic, ib = s["ic"], s["ib"]
             f[c] += p * ic
             f[b] += p * ib
             f[e] -= p * (ic + ib)
@@ -361,14 +387,15 @@ class _DcSystem:
                 dvbe[node] = dvbe.get(node, 0.0) + val
             for node, val in ((c, p), (e, -p)):
                 dvce[node] = dvce.get(node, 0.0) + val
-            dic = {
-                node: dvbe.get(node, 0.0) * s["dvbe"] + dvce.get(node, 0.0) * s["dvce"]
-                for node in set(dvbe) | set(dvce)
-            }
-            for node, dd in dic.items():
-                jac[c, node] += p * dd
-                jac[b, node] += p * dd / h
-                jac[e, node] -= p * dd * (1.0 + 1.0 / h)
+            nodes = set(dvbe) | set(dvce)
+            dic = {nd: dvbe.get(nd, 0.0) * s["dic_vbe"] + dvce.get(nd, 0.0) * s["dic_vce"]
+                   for nd in nodes}
+            dib = {nd: dvbe.get(nd, 0.0) * s["dib_vbe"] + dvce.get(nd, 0.0) * s["dib_vce"]
+                   for nd in nodes}
+            for node in nodes:
+                jac[c, node] += p * dic[node]
+                jac[b, node] += p * dib[node]
+                jac[e, node] -= p * (dic[node] + dib[node])
             if k in self.thermal:
                 j = self.thermal.index(k)
                 col = n + j
@@ -376,10 +403,13 @@ class _DcSystem:
                 jac[b, col] += p * s["dibt"]
                 jac[e, col] -= p * (s["dt"] + s["dibt"])
                 th = self.devs[k].theta_ja
-                tres[j] = s["t"] - self.cond.ambient - th * s["vce"] * ic
-                jac[col, col] = 1.0 - th * s["vce"] * s["dt"]
-                for node, dd in dic.items():
-                    jac[col, node] -= th * (dvce.get(node, 0.0) * ic + s["vce"] * dd)
+                # a reversed or cut-off transistor dissipates nothing (never negative power)
+                hot = s["vce"] > 0 and ic > 0
+                tres[j] = s["t"] - self.cond.ambient - (th * s["vce"] * ic if hot else 0.0)
+                jac[col, col] = 1.0 - (th * s["vce"] * s["dt"] if hot else 0.0)
+                if hot:
+                    for node, dd in dic.items():
+                        jac[col, node] -= th * (dvce.get(node, 0.0) * ic + s["vce"] * dd)
         sel = np.concatenate([self.free, np.arange(n, n + nt)])
         res = np.concatenate([f[self.free], tres])
         return res, jac[np.ix_(sel, sel)]
@@ -459,6 +489,19 @@ def solve_dc(cir: Circuit, cond: Conditions, guess: np.ndarray | None = None) ->
     return _operating_point(sys_, x)
 
 
+IC_ACTIVE = 100e-9  # A: "active only with VCE >= vce_sat and IC >= 100 nA" (second release)
+
+
+def c_pi(d: Device, gm: float) -> float:
+    """Cpi at gm: without ft_current max(gm/(2 pi ft) - Cmu, 0); with it (second release)
+    gm*tauF + c_je, tauF = max(1/(2 pi ft) - (c_je + c_cb)/gm_ft, 0), gm_ft = ft_current/VT(25)."""
+    if d.ft_current is None:
+        return max(gm / (2 * math.pi * d.ft) - d.c_cb, 0.0)
+    gm_ft = d.ft_current / float(thermal_voltage(25.0))
+    tau_f = max(1.0 / (2 * math.pi * d.ft) - (d.c_je + d.c_cb) / gm_ft, 0.0)
+    return gm * tau_f + d.c_je
+
+
 def _operating_point(sys_: _DcSystem, x: np.ndarray) -> OperatingPoint:
     """Pack the converged unknowns into an OperatingPoint with hybrid-pi values."""
     v, tj = sys_.unpack(x, 1.0)
@@ -471,8 +514,8 @@ def _operating_point(sys_: _DcSystem, x: np.ndarray) -> OperatingPoint:
             ref=q.ref, ic=ic, ib=s["ib"], vce=vce, vbe_int=s["vbe"], tj=s["t"], hfe=h, vt=vt,
             gm=gm, rpi=h / gm if gm > 0 else math.inf,
             ro=(d.early_voltage + vce) / ic if ic > 0 else math.inf,
-            cpi=max(gm / (2 * math.pi * d.ft) - d.c_cb, 0.0), cmu=d.c_cb, rx=d.r_bb,
-            active=bool(ic > 0 and vce >= d.vce_sat),
+            cpi=c_pi(d, gm), cmu=d.c_cb, rx=d.r_bb,
+            active=bool(ic >= IC_ACTIVE and vce >= d.vce_sat),
         )
     f = sys_.full_kcl(v, tj)
     supply = float(f[sys_.idx[sys_.cir.supply_node]])  # current the supply pushes into the circuit
@@ -560,9 +603,46 @@ class _AcNetwork:
         return v[:, self.idx[node]] if node in self.idx else np.zeros(v.shape[0], dtype=complex)
 
 
+def _series_source(cir: Circuit, op: OperatingPoint, freqs: np.ndarray, load: bool,
+                   inject_emf: bool, probe: str | None = None) -> np.ndarray:
+    """Node voltages with the source EMF behind Rs and Cs in series (second release): one
+    extra node between them, solved frequency by frequency (EMF 1 V, or 0 V with a 1 A
+    test current into `probe`)."""
+    net = _AcNetwork(cir, op, load=load, source=False)
+    n = len(net.idx)
+    freqs = np.atleast_1d(np.asarray(freqs, dtype=float))
+    i_in = net.idx[cir.input]
+    out = np.zeros((len(freqs), n), dtype=complex)
+    for k, f in enumerate(freqs):
+        w = 2 * np.pi * f
+        y = np.zeros((n + 1, n + 1), dtype=complex)
+        y[:n, :n] = net.g + 1j * w * net.c
+        yc = 1j * w * cir.source_capacitance
+        y[i_in, i_in] += yc  # Cs between the input and the extra node x
+        y[n, n] += yc
+        y[i_in, n] -= yc
+        y[n, i_in] -= yc
+        rhs = np.zeros(n + 1, dtype=complex)
+        if cir.source_resistance > 0:
+            y[n, n] += 1.0 / cir.source_resistance
+            if inject_emf:
+                rhs[n] = 1.0 / cir.source_resistance
+        else:  # x is the EMF itself
+            y[n, :] = 0.0
+            y[n, n] = 1.0
+            rhs[n] = 1.0 if inject_emf else 0.0
+        if probe is not None:
+            rhs[net.idx[probe]] += 1.0
+        out[k] = np.linalg.solve(y, rhs)[:n]
+    return out
+
+
 def gain(cir: Circuit, op: OperatingPoint, freqs: np.ndarray | float) -> np.ndarray:
     """v_load / v_source_emf with the source (EMF + resistance) and the load in place."""
     net = _AcNetwork(cir, op, load=True, source=False)
+    if cir.source_capacitance > 0:
+        v = _series_source(cir, op, freqs, load=True, inject_emf=True)
+        return net.voltage(v, cir.output)
     if cir.source_resistance > 0:
         net_s = _AcNetwork(cir, op, load=True, source=True)
         v = net_s.solve(freqs, {cir.input: 1.0 / cir.source_resistance})
@@ -574,7 +654,9 @@ def gain(cir: Circuit, op: OperatingPoint, freqs: np.ndarray | float) -> np.ndar
 def node_response(cir: Circuit, op: OperatingPoint, freq: float) -> dict[str, complex]:
     """All node voltages for 1 V source EMF at one frequency (AC grounds = 0)."""
     net = _AcNetwork(cir, op, load=True, source=cir.source_resistance > 0)
-    if cir.source_resistance > 0:
+    if cir.source_capacitance > 0:
+        v = _series_source(cir, op, [freq], load=True, inject_emf=True)
+    elif cir.source_resistance > 0:
         v = net.solve([freq], {cir.input: 1.0 / cir.source_resistance})
     else:
         v = net.solve([freq], {}, fixed={cir.input: 1.0})
@@ -593,6 +675,9 @@ def input_impedance(cir: Circuit, op: OperatingPoint, freq: float) -> complex:
 def output_impedance(cir: Circuit, op: OperatingPoint, freq: float) -> complex:
     """Z back into the output terminal, source resistance in place (EMF 0), load removed."""
     net = _AcNetwork(cir, op, load=False, source=True)
+    if cir.source_capacitance > 0:
+        v = _series_source(cir, op, [freq], load=False, inject_emf=False, probe=cir.output)
+        return complex(net.voltage(v, cir.output)[0])
     return complex(net.voltage(net.solve([freq], {cir.output: 1.0}), cir.output)[0])
 
 
