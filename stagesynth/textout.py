@@ -132,6 +132,11 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
                   f"{worst.condition.label}, {worst.swing_limit})"],
     ]
     out += _table(["figure", "value"], rows)
+    off = [f"{ref} {s.region}" for ref, s in analysis.nominal.transistors.items()
+           if s.region != "active"]
+    if off:
+        out.append(f"warning: at nominal {', '.join(off)}; the small-signal figures above "
+                   "assume the active region and do not describe this stage")
     out.append("")
     refs = [p.ref for p in d.bjts]
     sat = {p.ref: d.devices[p.device].vce_sat for p in d.bjts}
