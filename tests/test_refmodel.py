@@ -94,7 +94,7 @@ def _independent_currents(design: dict[str, Any], op: rm.OperatingPoint) -> dict
             a, b = p["nodes"]
             flow(a, b, (v[a] - v[b]) / p["value"])
     rs = design["source"]["resistance"]
-    if rs > 0:
+    if rs > 0 and not design["source"].get("capacitance"):  # a series capacitor blocks DC
         flow(design["input"], gnd, v[design["input"]] / rs)
     flow(design["output"], gnd, v[design["output"]] / design["load"]["resistance"])
     k_over_q = 1.380649e-23 / 1.602176634e-19  # CODATA 2018

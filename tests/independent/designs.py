@@ -34,6 +34,9 @@ DRIVER_NPN: dict[str, Any] = {
     "early_voltage": 120.0, "ft": 2.0e8, "c_cb": 3.5e-12, "r_bb": 30.0, "vce_sat": 0.2,
     "vbe_tempco": -1.9e-3, "hfe_tempco": 6e-3, "theta_ja": 200.0,
 }
+CHARGE_NPN: dict[str, Any] = {  # second release: fT stated at 10 mA, junction capacitance
+    **SMALL_NPN, "ft_current": 10e-3, "c_je": 8e-12, "hfe_reverse": 2.0,
+}
 WIDE_NPN: dict[str, Any] = {  # a part type with a tenfold hFE spread
     "polarity": "npn", "hfe": [50, 500], "vbe": 0.65, "vbe_current": 1e-3,
     "early_voltage": 100.0, "ft": 2.5e8, "c_cb": 4e-12, "r_bb": 40.0, "vce_sat": 0.2,
@@ -142,6 +145,15 @@ DESIGNS: dict[str, dict[str, Any]] = {
         _c("C1", 10e-6, "in", "b1"), _c("CE", 100e-6, "e2", "0"), _c("C2", 10e-6, "c3", "out"),
         _q("Q1", "c1", "b1", "e1", "QN"), _q("Q2", "c3", "c1", "e3", "QP"),
     ], SMALL_NPN), "devices": {"QN": copy.deepcopy(SMALL_NPN), "QP": copy.deepcopy(SMALL_PNP)}},
+    # piezo accelerometer preamp (second release): the sensor's capacitance in series with
+    # the EMF feeds the base directly (no coupling capacitor: it is the sensor's own), and
+    # fT falls at the 0.3 mA bias (ft_current, c_je)
+    "ce_piezo": {**_design("Piezo accelerometer preamp", "ce", 12.0, 1e3, 47e3, 220e-12, [
+        _r("R1", 150e3, "vcc", "in"), _r("R2", 33e3, "in", "0"), _r("RC", 15e3, "vcc", "c1"),
+        _r("RE1", 1.5e3, "e1", "e2"), _r("RE2", 3.3e3, "e2", "0"),
+        _c("C2", 1e-6, "c1", "out"), _c("CE", 47e-6, "e2", "0"),
+        _q("Q1", "c1", "in", "e1"),
+    ], CHARGE_NPN), "source": {"resistance": 1e3, "capacitance": 100e-9}},
 }
 
 
@@ -151,7 +163,7 @@ def _spec(design: str, title: str, tolerance: float, require: dict[str, Any]) ->
     return {
         "design": design, "title": title,
         "supply": {"voltage": d["supply"]["voltage"], "tolerance": tolerance},
-        "source": {"resistance": d["source"]["resistance"]},
+        "source": dict(d["source"]),
         "load": dict(d["load"]),
         "require": require,
     }
@@ -203,6 +215,12 @@ SPECS: dict[str, dict[str, Any]] = {
     "npn_pnp_swing": _spec("ce_npn_pnp", "Photodiode post-amp, big swing", 0.05, {
         "gain_db": 19.0, "gain_tolerance_db": 1.5, "f_low": 20.0, "f_high": 1e5,
         "swing": 6.0, "ambient": [0.0, 50.0]}),
+    "piezo_ok": _spec("ce_piezo", "Piezo accelerometer preamp", 0.05, {
+        "gain_db": 16.5, "gain_tolerance_db": 1.0, "f_low": 80.0, "f_high": 4e4, "z_in": 20e3,
+        "swing": 4.0, "ambient": [-10.0, 50.0], "inverting": "yes"}),
+    "piezo_low_corner": _spec("ce_piezo", "Piezo preamp, lower corner than the sensor allows",
+                              0.05, {"gain_db": 16.5, "gain_tolerance_db": 1.0, "f_low": 50.0,
+                                     "f_high": 4e4, "swing": 4.0, "ambient": [-10.0, 50.0]}),
     "fixed_bias": _spec("ce_fixed_bias", "Intercom stage", 0.05, {
         "gain_db": 40.0, "gain_tolerance_db": 3.0, "f_low": 50.0, "f_high": 1e4,
         "swing": 1.0, "ambient": [0.0, 40.0]}),
@@ -236,6 +254,12 @@ def transistor_toml(dev: Mapping[str, Any]) -> str:
     ]
     if dev.get("theta_ja") is not None:
         lines.append(f"theta_ja = {_q_str(dev['theta_ja'], 'K/W')}")
+    if dev.get("ft_current") is not None:  # second-release keys
+        lines.append(f"ft_current = {_q_str(dev['ft_current'], 'A')}")
+    if "c_je" in dev:
+        lines.append(f"c_je = {_q_str(dev['c_je'] * 1e12, 'pF')}")
+    if "hfe_reverse" in dev:
+        lines.append(f"hfe_reverse = {dev['hfe_reverse']!r}")
     return "\n".join(lines) + "\n"
 
 
@@ -246,7 +270,9 @@ def spec_toml(spec: Mapping[str, Any]) -> str:
     out = [f'title = "{spec["title"]}"', "", "[supply]",
            f"voltage = {_q_str(spec['supply']['voltage'], 'V')}",
            f'tolerance = "{spec["supply"]["tolerance"] * 100:g}%"', "", "[source]",
-           f"resistance = {_q_str(spec['source']['resistance'], 'Ω')}", "", "[load]",
+           f"resistance = {_q_str(spec['source']['resistance'], 'Ω')}",
+           *([f"capacitance = {spec['source']['capacitance']!r}"]
+             if spec["source"].get("capacitance") else []), "", "[load]",
            f"resistance = {spec['load']['resistance']!r}",
            f"capacitance = {spec['load']['capacitance']!r}", "", "[require]",
            f'gain = "{req["gain_db"]:g} dB"']
