@@ -17,6 +17,15 @@ from typing import Any
 
 from .device import Device
 from .errors import StageError
+from .limits import (
+    AMBIENT_LIMIT,
+    MAX_DEPTH,
+    MAX_PARTS,
+    SUPPLY_LIMIT,
+    device_problem,
+    nesting_depth,
+    out_of_range,
+)
 
 FORMAT = "stagesynth-design-1"
 PART_KINDS = ("resistor", "capacitor", "bjt")
@@ -328,15 +337,17 @@ def device_from_design_dict(data: Mapping[str, Any], name: str, file: str) -> De
                 positive=key not in _SIGNED_DEVICE_KEYS,
                 zero_ok=key in _ZERO_OK_DEVICE_KEYS,
             )
-    if "vbe" in values and not 0.1 <= values["vbe"] <= 1.5:
-        raise r.fail(f"{path}.vbe", f"{values['vbe']:g} V is not a junction voltage",
-                     "a magnitude from 0.1 to 1.5 V, e.g. 0.65")
     if "hfe_typ" in values and not hfe_min <= values["hfe_typ"] <= hfe_max:
         raise r.fail(f"{path}.hfe_typ", f"{values['hfe_typ']} lies outside hfe {spread}",
                      "a value between hfe min and max")
     if isinstance(data.get("preset"), str):
         values["name"] = data["preset"]
-    return Device(**values)
+    device = Device(**values)
+    problem = device_problem(device)
+    if problem is not None:  # the same limits the spec loader applies
+        field, message, accepted = problem
+        raise r.fail(f"{path}.{field}", message, accepted)
+    return device
 
 
 def design_from_dict(data: Any, file: str = "<design>") -> Design:
@@ -351,6 +362,9 @@ def design_from_dict(data: Any, file: str = "<design>") -> Design:
     supply = r.mapping(data, "supply")
     supply_node = r.text(supply, "node", "supply")
     supply_voltage = r.number(supply, "voltage", "supply")
+    if out_of_range(supply_voltage, SUPPLY_LIMIT):
+        raise r.fail("supply.voltage", f"{supply_voltage:g} V is outside the supported range",
+                     SUPPLY_LIMIT.accepted())
     source = r.mapping(data, "source", required=False)
     source_r = r.number(source, "resistance", "source", zero_ok=True, default=0.0)
     source_c = 0.0
@@ -368,6 +382,9 @@ def design_from_dict(data: Any, file: str = "<design>") -> Design:
     parts_raw = data.get("parts")
     if not isinstance(parts_raw, list) or not parts_raw:
         raise r.fail("parts", "must be a non-empty list of parts", "a list of part objects")
+    if len(parts_raw) > MAX_PARTS:
+        raise r.fail("parts", f"has {len(parts_raw)} parts; stagesynth analyses gain stages of "
+                     f"up to {MAX_PARTS} parts", f"at most {MAX_PARTS} parts")
     parts: list[Part] = []
     for i, raw in enumerate(parts_raw):
         parts.append(_part_from_dict(raw, i, devices, r))
@@ -428,6 +445,9 @@ def _check_conditions(cond: Any, r: _Reader) -> None:
         if not ok or amb[0] > amb[-1]:
             raise r.fail("conditions.ambient", f"{amb!r} is not [min, max] in °C",
                          "a list of one or two numbers in °C, min first")
+        if any(out_of_range(float(t), AMBIENT_LIMIT) for t in amb):
+            raise r.fail("conditions.ambient", f"{amb!r} lies outside the supported range",
+                         AMBIENT_LIMIT.accepted())
     tol = cond.get("supply_tolerance")
     if tol is not None and (isinstance(tol, bool) or not isinstance(tol, int | float)
                             or not 0 <= tol < 1):
@@ -512,22 +532,89 @@ def check_connectivity(design: Design, file: str = "<design>") -> None:
             if n not in external and touches[n] < 2:
                 raise r.fail(f"parts ({p.ref})", f"node {n!r} is left floating: only {p.ref} "
                              "connects to it", "a node shared by at least two parts")
+    _check_islands(design, r)
+
+
+def _check_islands(design: Design, r: _Reader) -> None:
+    """Refuse parts with no path to ground at signal frequencies (a singular circuit).
+
+    Supply and ground are one node for the signal; a transistor joins its three
+    terminals (r_pi, r_o, C_mu). A group of parts that touches neither is a floating
+    island: its node voltages are undefined, so the solvers' matrices are singular.
+    """
+    parent: dict[str, str] = {}
+
+    def find(x: str) -> str:
+        root = x
+        while parent.setdefault(root, root) != root:
+            root = parent[root]
+        while parent[x] != root:  # path compression, iterative (no recursion limit)
+            parent[x], x = root, parent[x]
+        return root
+
+    def join(a: str, b: str) -> None:
+        parent[find(a)] = find(b)
+
+    join(design.supply_node, design.ground)
+    for p in design.parts:
+        for n in p.nodes[1:]:
+            join(p.nodes[0], n)
+    ground = find(design.ground)
+    for p in design.parts:
+        for n in p.nodes:
+            if find(n) != ground:
+                island = sorted(q.ref for q in design.parts if find(q.nodes[0]) == find(n))
+                raise r.fail(f"parts ({p.ref})",
+                             f"node {n!r} floats: {', '.join(island)} connect(s) to neither "
+                             "ground nor the supply, so its voltage is undefined",
+                             "every part connected, through other parts, to ground or supply")
 
 
 def load_design(path: str | Path) -> Design:
     """Read and validate a design file; errors name the file and key (exit code 2)."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        raw = path.read_bytes()
     except FileNotFoundError:
         raise StageError("file not found", file=str(path)) from None
+    except IsADirectoryError:
+        raise StageError("is a folder, not a design file", file=str(path),
+                         accepted="the design.json inside it") from None
     except OSError as exc:
         raise StageError(f"cannot be read: {exc.strerror}", file=str(path)) from None
     try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise StageError(f"is not UTF-8 text (byte {exc.start})", file=str(path),
+                         accepted="a UTF-8 JSON design file written by stagesynth") from None
+    try:
         data = json.loads(text)
     except json.JSONDecodeError as exc:
+        hint = _spec_hint(text)
         raise StageError(
-            f"is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}",
+            f"is not valid JSON: {exc.msg} at line {exc.lineno}, column {exc.colno}{hint}",
             file=str(path),
+            accepted="a design file (JSON) written by stagesynth design" if hint else None,
         ) from None
+    except RecursionError:
+        raise StageError(f"is nested more than {MAX_DEPTH} levels deep", file=str(path),
+                         accepted="a design file written by stagesynth") from None
+    if nesting_depth(data) > MAX_DEPTH:
+        raise StageError(f"is nested more than {MAX_DEPTH} levels deep", file=str(path),
+                         accepted="a design file written by stagesynth")
     return design_from_dict(data, str(path))
+
+
+def _spec_hint(text: str) -> str:
+    """When a TOML spec was given where a design file belongs: say which command makes one."""
+    import tomllib
+
+    try:
+        data = tomllib.loads(text)
+    except (tomllib.TOMLDecodeError, RecursionError):
+        return ""
+    if isinstance(data, dict) and ("require" in data or "supply" in data):
+        return ("; this is a spec file (TOML): analyze, caps, report and plot need the "
+                "design file that 'stagesynth design SPEC.toml --out DIR' writes as "
+                "DIR/design.json")
+    return ""

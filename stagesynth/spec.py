@@ -21,6 +21,14 @@ from typing import Any
 from . import eseries
 from .device import PRESETS, Device
 from .errors import StageError
+from .limits import (
+    AMBIENT_LIMIT,
+    MAX_DEPTH,
+    SUPPLY_LIMIT,
+    device_problem,
+    nesting_depth,
+    out_of_range,
+)
 from .units import (
     accepted_for,
     format_quantity,
@@ -272,12 +280,24 @@ def _read_toml(path: Path, *, file_key: tuple[str, str] | None = None) -> dict[s
     except UnicodeDecodeError as exc:
         raise StageError(f"is not UTF-8 text (byte {exc.start})", file=str(path),
                          accepted="a UTF-8 TOML file") from None
+    if text.lstrip().startswith("{"):
+        raise StageError("is JSON, not a TOML spec (a design file?)", file=str(path),
+                         accepted="a spec file such as 'stagesynth new' writes; design files "
+                         "go to analyze, caps, report and plot")
     try:
-        return tomllib.loads(text)
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise StageError(f"is not valid TOML: {exc}", file=str(path),
                          accepted="TOML, e.g. key = \"value\" lines under [section] headers"
                          ) from None
+    except RecursionError:
+        raise StageError("is nested too deeply to be a spec", file=str(path),
+                         accepted="TOML, e.g. key = \"value\" lines under [section] headers"
+                         ) from None
+    if nesting_depth(data) > MAX_DEPTH:
+        raise StageError(f"is nested more than {MAX_DEPTH} levels deep", file=str(path),
+                         accepted="a spec file: [section] headers with key = value lines")
+    return data
 
 
 def device_from_mapping(
@@ -387,6 +407,10 @@ def device_from_mapping(
             f"hfe_typ {device.hfe_typ:g} lies outside hfe [{device.hfe_min:g}, "
             f"{device.hfe_max:g}]", file=file, key=_where(key_prefix, "hfe_typ"),
             accepted="a value between the hfe min and max")
+    problem = device_problem(device)
+    if problem is not None:  # the same limits the design-file reader applies
+        field, message, accepted = problem
+        raise StageError(message, file=file, key=_where(key_prefix, field), accepted=accepted)
     return device
 
 
@@ -459,6 +483,8 @@ def spec_from_mapping(data: Mapping[str, Any], file: str = "<spec>", *,
     transistor = device_from_mapping(data["transistor"], file, "transistor", base_dir=folder)
 
     parts = _parts(_table(data, "parts", file, required=False), file)
+    for volts in (supply.voltage, *(getattr(supply, "range", None) or ())):
+        _check_limits(volts, require.ambient, file)
     spec = Spec(supply=supply, load=load, require=require, transistor=transistor,
                 source=source, parts=parts, title=title, path=file)
     from .plausible import spec_warnings
@@ -528,6 +554,17 @@ def _ranges_and_match(req: Requirements, r: Mapping[str, Any], source: Source,
                              "the input terminates)")
         values["return_loss"] = rl
     return dataclasses.replace(req, **values) if values else req
+
+
+def _check_limits(voltage: float, ambient: tuple[float, float], file: str) -> None:
+    """Supply and ambient within the range the model holds for (limits.py, shared)."""
+    if out_of_range(voltage, SUPPLY_LIMIT):
+        raise StageError(f"{format_quantity(voltage, 'V')} is outside the supported range",
+                         file=file, key="supply.voltage", accepted=SUPPLY_LIMIT.accepted())
+    for t in ambient:
+        if out_of_range(t, AMBIENT_LIMIT):
+            raise StageError(f"{format_quantity(t, '°C')} is outside the supported range",
+                             file=file, key="require.ambient", accepted=AMBIENT_LIMIT.accepted())
 
 
 def _requirements(r: Mapping[str, Any], file: str) -> Requirements:

@@ -20,7 +20,7 @@ import math
 import re
 import unicodedata
 from collections.abc import Mapping
-from decimal import Decimal
+from decimal import Decimal, DecimalException
 
 from .errors import StageError
 
@@ -137,8 +137,22 @@ def parse_number(value: object, *, key: str = "", file: str = "") -> float:
 
 
 def _scaled(number: str, exponent: int) -> float:
-    """float of number * 10**exponent, rounded once (so "100 n" gives exactly 1e-7)."""
-    return float(Decimal(number).scaleb(exponent))
+    """float of number * 10**exponent, rounded once (so "100 n" gives exactly 1e-7).
+
+    An exponent beyond Decimal's range gives inf (or 0), which the callers refuse as
+    not finite, instead of a decimal.Overflow.
+    """
+    try:
+        return float(Decimal(number).scaleb(exponent))
+    except (DecimalException, ValueError, OverflowError):
+        return _overflowed(number)
+
+
+def _overflowed(number: str) -> float:
+    """inf (signed) for a number too large for Decimal, 0.0 for one too small."""
+    mantissa, _, exp = number.lower().partition("e")
+    sign = -1.0 if mantissa.strip().startswith("-") else 1.0
+    return sign * math.inf if exp and not exp.strip().startswith("-") else 0.0
 
 
 def _strip_suffix(text: str, spellings: tuple[str, ...]) -> str | None:
@@ -228,7 +242,11 @@ def _number_and_suffix(
     for suffix in sorted(suffixes, key=len, reverse=True):
         rest = text[: -len(suffix)] if text.endswith(suffix) else None
         if rest is not None and _NUMBER_RE.match(rest.strip()):
-            return float(Decimal(rest.strip()) * Decimal(repr(suffixes[suffix]))), suffix
+            try:
+                x = float(Decimal(rest.strip()) * Decimal(repr(suffixes[suffix])))
+            except (DecimalException, ValueError, OverflowError):
+                x = _overflowed(rest.strip())
+            return _finite(x, _show(value), key, file, accepted), suffix
     other = _what_unit(text)
     message = f"{_show(value)} reads as a {other}, not a {what}" if other else (
         f"{_show(value)} is not a {what}")
@@ -271,6 +289,9 @@ def parse_gain(value: object, *, key: str = "", file: str = "") -> float:
     x, suffix = _number_and_suffix(value, {"dB": 1.0, "db": 1.0, "DB": 1.0, "V/V": 1.0},
                                    key=key, file=file, accepted=accepted, what="gain")
     if suffix is not None and suffix.lower() == "db":
+        if not -400.0 <= x <= 400.0:  # beyond what a float holds (10**(x/20))
+            raise _fail(f"{_show(value)} is out of range", key, file,
+                        "a gain between -400 dB and +400 dB")
         return 10.0 ** (x / 20.0)
     if x <= 0:
         raise _fail(f"{_show(value)} must be a positive magnitude", key, file,
