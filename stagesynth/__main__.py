@@ -1,5 +1,11 @@
 """`python -m stagesynth` runs the command-line interface."""
 
-from .cli import main
+import sys
+
+try:
+    from .cli import main
+except KeyboardInterrupt:  # Ctrl-C while the libraries load: nothing was written
+    sys.stderr.write("stagesynth: interrupted, nothing changed\n")
+    sys.exit(130)
 
 main()

@@ -34,16 +34,52 @@ def _fail(message: str, code: int = 2) -> None:
 
 
 def user_errors(func):
-    """Turn StageError into one line on stderr and exit code 2."""
+    """Turn StageError into one line on stderr and exit code 2; Ctrl-C into exit 130.
+
+    A circuit the solvers find singular despite the loader's checks is reported
+    as bad input too (exit 2), never as a traceback.
+    """
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
+        from .fileio import COMMITTED
+
+        done = len(COMMITTED)
         try:
             return func(*args, **kwargs)
         except StageError as exc:
             _fail(f"error: {exc}", exc.exit_code)
+        except KeyboardInterrupt:
+            changed = COMMITTED[done:]
+            if changed:
+                _fail("interrupted; these files were already written: "
+                      + ", ".join(str(p) for p in changed), 130)
+            _fail("interrupted, nothing changed", 130)
+        except Exception as exc:
+            if type(exc).__name__ != "LinAlgError":
+                raise
+            _fail("error: the circuit cannot be solved (its matrix is singular): a node or "
+                  "part is not tied to ground or the supply in a way the model can resolve", 2)
 
     return wrapper
+
+
+def _version(value: bool) -> None:
+    if value:
+        from . import __version__
+
+        typer.echo(f"stagesynth {__version__}")
+        raise typer.Exit(0)
+
+
+@app.callback()
+def _main(
+    version: Annotated[
+        bool, typer.Option("--version", callback=_version, is_eager=True,
+                           help="Print the version and exit.")
+    ] = False,
+) -> None:
+    """Design and verify discrete transistor gain stages from a requirements file."""
 
 
 def _pulse_width(text: str | None) -> float | None:
@@ -160,23 +196,38 @@ def design(
 ) -> None:
     """Synthesize a stage that meets SPEC.toml; write design.json and the report to DIR."""
     from . import api
-    from .fileio import OutputDir
+    from .fileio import OutputDir, digest
 
     if prefer not in api.PREFER:
-        raise StageError(f"--prefer {prefer!r} is not a choice", key="--prefer",
+        raise StageError(f"{prefer!r} is not a choice", key="--prefer",
                          accepted=", ".join(api.PREFER))
     width = _pulse_width(pulse_width)
     spec = _warned(api.load_spec(spec_file))
-    outdir = OutputDir(out, force=force)
-    outdir.check(["design.json"] + ([] if no_report else api.report_files()))  # before any work
     if circuit is not None:
         from .topologies import FAMILIES
 
         if circuit not in FAMILIES:
             raise StageError(f"{circuit!r} is not a circuit family", key="--circuit",
                              accepted=", ".join(FAMILIES))
-    result = api.synthesize(spec, circuit=circuit, prefer=prefer)
-    written = api.write_report(result, outdir, pulse_width=width, report=not no_report)
+    from .reach import unreachable
+
+    bounds = unreachable(spec)
+    if bounds:  # provably out of reach: say so at once, write nothing
+        typer.echo("No design can meet every requirement (found before any search). "
+                   "Conflicts:", err=True)
+        for c in bounds:
+            typer.echo(f"  {c.name}: asked {c.limit}; {c.best}.\n"
+                       f"    what to relax: {c.advice}", err=True)
+        raise typer.Exit(1)
+    # one transaction: the folder is locked, every file staged, all moved in at the end
+    with OutputDir(out, force=force) as outdir:
+        outdir.check(["design.json"] + ([] if no_report else api.report_files()))
+        result = api.synthesize(spec, circuit=circuit, prefer=prefer)
+        outdir.spec = str(spec_file.resolve())
+        outdir.source = digest(result.design.to_json().encode("utf-8"))
+        written = api.write_report(result, outdir, pulse_width=width, report=not no_report)
+        # files of an earlier run here that this run does not make again
+        outdir.drop_stale([p.name for p in written], api.report_files())
     from .textout import analysis_table
 
     typer.echo(analysis_table(result.analysis, result.verdict))
@@ -217,8 +268,17 @@ def caps(
     force: Annotated[
         bool, typer.Option("--force", help="Overwrite a file stagesynth did not write.")
     ] = False,
+    no_report: Annotated[
+        bool, typer.Option("--no-report",
+                           help="Leave the report files beside the design as they are "
+                                "(they are listed as out of date).")
+    ] = False,
 ) -> None:
-    """Re-size the coupling and bypass capacitors of a design for a new low corner."""
+    """Re-size the coupling and bypass capacitors of a design for a new low corner.
+
+    The report, plots and parts list made from the old design in the same folder are
+    made again from the new one (or, with --no-report, listed as out of date).
+    """
     from . import api
     from .fileio import OutputDir
     from .textout import fmt
@@ -231,20 +291,58 @@ def caps(
     spec_obj = _warned(api.load_spec(spec)) if spec is not None else None
     change = api.resize_capacitors(d, target, spec_obj)
     target_path = out or design_file
-    outdir = OutputDir(target_path.parent, force=force)
-    outdir.write_text(target_path.name, change.design.to_json())
+    with OutputDir(target_path.parent, force=force) as outdir:
+        refreshed, stale = _write_caps_result(outdir, target_path.name, change.design, spec,
+                                              spec_obj, no_report)
     for ref, old, new, r_seen, share in change.changes:
         typer.echo(f"{ref}: {fmt(old, 'F')} -> {fmt(new, 'F')}"
                    f"  (sees {fmt(r_seen, 'Ω')}, {100 * share:.0f} % of the corner)")
     typer.echo(f"f_low: {fmt(change.before.f_low, 'Hz')} -> {fmt(change.after.f_low, 'Hz')} "
                f"(worst case with every capacitor {100 * change.tolerance:.0f} % low: "
                f"{fmt(change.f_low_worst, 'Hz')}); wrote {target_path}")
+    if refreshed:
+        typer.echo(f"made again from the new design: {', '.join(refreshed)}")
+    if stale:
+        typer.echo(f"now out of date (made from the previous design): {', '.join(stale)}; "
+                   f"refresh with: stagesynth report {target_path} --out {target_path.parent}",
+                   err=True)
     if change.verdict is not None and not change.verdict.meets_spec:
         failed = ", ".join(c.name for c in change.verdict.failed)
         typer.echo(f"the updated design does not meet {spec}: {failed}", err=True)
         raise typer.Exit(1)
     if not change.meets:
         raise typer.Exit(1)
+
+
+def _write_caps_result(outdir, name: str, new, spec_path, spec_obj, no_report: bool):
+    """Write the re-sized design; refresh the report files made from its previous version.
+
+    Returns (refreshed names, names left out of date). The manifest says which design
+    each file was made from and which spec it was judged against.
+    """
+    from . import api
+    from .fileio import digest
+
+    text = new.to_json()
+    old = outdir.root / name
+    old_source = digest(old.read_bytes()) if old.is_file() else None
+    outdir.source = digest(text.encode("utf-8"))
+    outdir.write_text(name, text)
+    bundle = api.report_files()
+    stale = [n for n in outdir.stale(outdir.source)
+             if n in bundle and outdir.made_from(n) == old_source]
+    if not stale or no_report:
+        return [], stale
+    if spec_obj is None and outdir.spec and Path(outdir.spec).is_file():
+        try:  # the spec the files were judged against, when it still reads
+            spec_obj = api.load_spec(outdir.spec)
+        except StageError:
+            spec_obj = None
+    elif spec_path is not None:
+        outdir.spec = str(Path(spec_path).resolve())
+    written = api.write_report(api.analyze(new, spec_obj, units=0), outdir)
+    outdir.drop_stale([p.name for p in written], bundle)
+    return [p.name for p in written], []
 
 
 @app.command()
@@ -269,7 +367,14 @@ def report(
     d = api.load_design(design_file)
     spec_obj = _warned(api.load_spec(spec)) if spec is not None else None
     result = api.analyze(d, spec_obj, units=0)
-    written = api.write_report(result, out, force=force, pulse_width=width)
+    from .fileio import OutputDir, digest
+
+    with OutputDir(out, force=force) as outdir:
+        outdir.source = digest(design_file.read_bytes())
+        if spec is not None:
+            outdir.spec = str(spec.resolve())
+        written = api.write_report(result, outdir, pulse_width=width)
+        outdir.drop_stale([p.name for p in written], api.report_files())
     typer.echo(f"wrote {', '.join(str(p) for p in written)}")
     if result.meets_spec is False:
         raise typer.Exit(1)
@@ -298,9 +403,47 @@ def plot(
     d = api.load_design(design_file)
     spec_obj = _warned(api.load_spec(spec)) if spec is not None else None
     result = api.analyze(d, spec_obj, units=0)
-    outdir = OutputDir(out or design_file.parent, force=force)
-    written = write_plots(outdir, d, result.analysis, spec_obj)
+    from .fileio import digest
+
+    with OutputDir(out or design_file.parent, force=force) as outdir:
+        outdir.source = digest(design_file.read_bytes())
+        written = write_plots(outdir, d, result.analysis, spec_obj)
     typer.echo(f"wrote {', '.join(str(p) for p in written)}")
+
+
+@app.command()
+@user_errors
+def presets() -> None:
+    """List the built-in generic transistors and their data (use: preset = "NAME")."""
+    from .device import PRESETS
+    from .units import format_quantity as q
+
+    def hfe(d):
+        return f"{d.hfe_min:g} / {d.hfe_nominal:g} / {d.hfe_max:g}"
+
+    fields = [
+        ("polarity", lambda d: d.polarity.upper()),
+        ("hfe min/typ/max", hfe),
+        ("vbe", lambda d: f"{q(d.vbe, 'V')} at {q(d.vbe_current, 'A')}"),
+        ("ft", lambda d: q(d.ft, "Hz")),
+        ("c_cb", lambda d: q(d.c_cb, "F")),
+        ("r_bb", lambda d: q(d.r_bb, "Ω")),
+        ("early_voltage", lambda d: q(d.early_voltage, "V")),
+        ("vce_sat", lambda d: q(d.vce_sat, "V")),
+        ("ic_max", lambda d: q(d.ic_max, "A") if d.ic_max else "-"),
+        ("vce_max", lambda d: q(d.vce_max, "V") if d.vce_max else "-"),
+        ("p_max", lambda d: q(d.p_max, "W") if d.p_max else "-"),
+        ("theta_ja", lambda d: q(d.theta_ja, "K/W") if d.theta_ja else "-"),
+        ("vbe_tempco", lambda d: q(d.vbe_tempco, "V/K")),
+        ("hfe_tempco", lambda d: q(d.hfe_tempco, "%/K")),
+    ]
+    names = list(PRESETS)
+    rows = [["", *names]] + [[label, *(f(PRESETS[n]) for n in names)] for label, f in fields]
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    for r in rows:
+        typer.echo("  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)).rstrip())
+    typer.echo("\nGeneric, invented types (no manufacturer's part). In a spec: "
+               '[transistor] preset = "NAME"; any key above overrides the preset\'s value.')
 
 
 @app.command()
@@ -325,6 +468,6 @@ def main() -> None:
     """Console entry point."""
     try:
         app()
-    except KeyboardInterrupt:
-        typer.echo("stagesynth: interrupted", err=True)
+    except KeyboardInterrupt:  # outside a command (while starting up): nothing was written
+        typer.echo("stagesynth: interrupted, nothing changed", err=True)
         sys.exit(130)

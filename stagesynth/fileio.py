@@ -93,6 +93,7 @@ class OutputDir:
         self.root = Path(root)
         self.force = force
         self.source: str | None = None  # digest of the design the next files are made from
+        self.spec: str | None = None  # the spec file the last set was judged against
         self._manifest_path = self.root / MANIFEST
         self._owned: dict[str, str] = {}
         self._sources: dict[str, str] = {}
@@ -108,20 +109,23 @@ class OutputDir:
 
     # -- manifest -----------------------------------------------------------------
     def _read_manifest(self) -> None:
-        self._owned, self._sources = {}, {}
+        self._owned, self._sources, self.spec = {}, {}, None
         if not self._manifest_path.exists():
             return
         try:
             data = json.loads(self._manifest_path.read_text(encoding="utf-8"))
             self._owned = {str(k): str(v) for k, v in dict(data["files"]).items()}
             self._sources = {str(k): str(v) for k, v in dict(data.get("sources", {})).items()}
+            self.spec = data.get("spec") if isinstance(data.get("spec"), str) else None
         except (ValueError, KeyError, TypeError, AttributeError, UnicodeDecodeError,
                 RecursionError):
-            self._owned, self._sources = {}, {}
+            self._owned, self._sources, self.spec = {}, {}, None
 
     def _manifest_bytes(self) -> bytes:
-        body = json.dumps({"tool": "stagesynth", "files": self._owned, "sources": self._sources},
-                          indent=1, sort_keys=True)
+        data = {"tool": "stagesynth", "files": self._owned, "sources": self._sources}
+        if self.spec:
+            data["spec"] = self.spec
+        body = json.dumps(data, indent=1, sort_keys=True)
         return (body + "\n").encode("utf-8")
 
     def made_from(self, name: str) -> str | None:
