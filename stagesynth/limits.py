@@ -55,6 +55,9 @@ DEVICE_LIMITS: dict[str, Limit] = {
 # Operating conditions.
 AMBIENT_LIMIT = Limit(-100.0, 200.0, "°C", "where silicon transistors work")
 SUPPLY_LIMIT = Limit(0.1, 1000.0, "V")
+# Below a microamp the leakage of a discrete transistor (I_CBO, nA at 25 °C and
+# a hundred times more when hot) is of the order of the bias itself (common practice).
+SUPPLY_CURRENT_FLOOR = 1e-6
 # Largest netlist analysed. The solvers are dense and batched (the right choice for
 # a gain stage of 10 to 30 parts); time grows as the cube of the node count: 300
 # resistors take about 7 s to analyse on a loaded 2-core machine, 1000 take three

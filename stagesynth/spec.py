@@ -24,6 +24,7 @@ from .errors import StageError
 from .limits import (
     AMBIENT_LIMIT,
     MAX_DEPTH,
+    SUPPLY_CURRENT_FLOOR,
     SUPPLY_LIMIT,
     device_problem,
     nesting_depth,
@@ -485,6 +486,11 @@ def spec_from_mapping(data: Mapping[str, Any], file: str = "<spec>", *,
     parts = _parts(_table(data, "parts", file, required=False), file)
     for volts in (supply.voltage, *(getattr(supply, "range", None) or ())):
         _check_limits(volts, require.ambient, file)
+    if require.supply_current is not None and require.supply_current < SUPPLY_CURRENT_FLOOR:
+        raise StageError(f"{format_quantity(require.supply_current, 'A')} is below what a "
+                         "discrete stage's leakage allows", file=file,
+                         key="require.supply_current",
+                         accepted=f"at least {format_quantity(SUPPLY_CURRENT_FLOOR, 'A')}")
     spec = Spec(supply=supply, load=load, require=require, transistor=transistor,
                 source=source, parts=parts, title=title, path=file)
     from .plausible import spec_warnings
