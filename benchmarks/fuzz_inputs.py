@@ -166,8 +166,7 @@ def main() -> int:
     runner = CliRunner()
     spec0 = base_spec()
     tmp = Path(tempfile.mkdtemp(prefix="stagesynth-fuzz-"))
-    design0 = None
-    res = runner.invoke(app, ["design", str(ROOT / "specs" / "hydrophone-front-end.toml"),
+    runner.invoke(app, ["design", str(ROOT / "specs" / "hydrophone-front-end.toml"),
                               "--out", str(tmp / "base"), "--no-report"])
     design0 = json.loads((tmp / "base" / "design.json").read_text())
     codes: collections.Counter = collections.Counter()

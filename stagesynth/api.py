@@ -293,9 +293,14 @@ def write_report(result_or_design: Result | Assessment | Design | str | Path,
     """
     from .fileio import OutputDir
 
+    _check_width(pulse_width)
+    if not isinstance(out_dir, OutputDir):  # one locked, all-or-nothing set of files
+        with OutputDir(Path(out_dir), force=force) as out:
+            return write_report(result_or_design, out, spec, pulse_width=pulse_width,
+                                report=report)
     obj = result_or_design
     _check_width(pulse_width)
-    out = out_dir if isinstance(out_dir, OutputDir) else OutputDir(Path(out_dir), force=force)
+    out = out_dir
     names = (["design.json"] if isinstance(obj, Result) else []) + (
         report_files() if report else [])
     out.check(names)  # refuse before any work is written

@@ -34,14 +34,16 @@ class Limit:
 
 
 # Device fields (contract section 1 [transistor]; the design file's "devices").
-# vbe and vce_sat are magnitudes; hFE bounds apply to min, typ and max alike.
+# vbe and vce_sat are magnitudes; hFE bounds apply to min, typ and max alike. The
+# upper ends of early_voltage and ft and the lower end of c_cb stay open enough for
+# the textbook's ideal device (VA, fT -> infinity, C_mu -> 0) used to check formulas.
 DEVICE_LIMITS: dict[str, Limit] = {
     "hfe": Limit(1.0, 1e5, "", "a current gain, Darlington pairs included"),
     "vbe": Limit(0.1, 1.5, "V", "a junction voltage magnitude"),
     "vbe_current": Limit(1e-9, 100.0, "A"),
-    "early_voltage": Limit(1.0, 1e4, "V"),
-    "ft": Limit(1e4, 1e12, "Hz"),
-    "c_cb": Limit(1e-15, 1e-8, "F"),
+    "early_voltage": Limit(1.0, 1e15, "V"),
+    "ft": Limit(1e4, 1e21, "Hz"),
+    "c_cb": Limit(0.0, 1e-8, "F"),
     "r_bb": Limit(0.0, 1e4, "Ω"),
     "vce_sat": Limit(0.0, 5.0, "V"),
     "ic_max": Limit(1e-5, 1000.0, "A"),

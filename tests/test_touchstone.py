@@ -24,9 +24,11 @@ from stagesynth.analysis import analyze
 from stagesynth.netlist import Design, design_from_dict
 from stagesynth.report.touchstone import (
     stage_network,
+    stage_touchstone,
     sweep_range,
     touchstone_text,
     two_port_y,
+    y_to_s,
 )
 
 
@@ -53,7 +55,7 @@ def written(tmp_path_factory):
         a = analyze(design)
         path = root / name / "stage.s2p"
         path.parent.mkdir()
-        path.write_text(touchstone_text(stage_network(design, a)), encoding="latin-1")
+        path.write_text(stage_touchstone(design, a), encoding="latin-1")  # our own writer
         out[name] = (a, skrf.Network(str(path)), path)  # scikit-rf's Touchstone reader
     return out
 
@@ -141,3 +143,18 @@ def test_two_port_is_the_y_parameter_definition(written):
             v[inner] = np.linalg.solve(y[np.ix_(inner, inner)], -y[np.ix_(inner, [p])][:, 0])
             currents = y @ v
             assert np.allclose(currents[ports], y2[k, :, j], rtol=1e-9, atol=1e-15)
+
+
+@pytest.mark.parametrize("name", sorted(DESIGNS))
+def test_own_writer_matches_scikit_rf(name, written):
+    """Our Y->S conversion and Touchstone text against scikit-rf's y2s and its own writer."""
+    import skrf
+
+    a, net, path = written[name]
+    y = two_port_y(a.system, net.f)
+    np.testing.assert_allclose(y_to_s(y), skrf.network.y2s(y, z0=50.0), rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(net.s, skrf.network.y2s(y, z0=50.0), rtol=1e-9, atol=1e-12)
+    ref = skrf.Network(str(path))  # scikit-rf reading back what scikit-rf itself writes
+    twin = path.with_name("twin.s2p")
+    twin.write_text(touchstone_text(stage_network(a.design, a)), encoding="latin-1")
+    np.testing.assert_allclose(skrf.Network(str(twin)).s, ref.s, rtol=1e-9, atol=1e-12)

@@ -64,7 +64,7 @@ def write_bundle(
     from .bom import bom_csv, bom_rows
     from .document import report_html, report_markdown, schematic_svg
     from .poles import pole_zero_map
-    from .touchstone import stage_network, touchstone_text
+    from .touchstone import stage_touchstone
 
     out.check(list(BUNDLE_FILES))
     contents: dict[str, bytes] = _plots(analysis, spec)
@@ -94,7 +94,7 @@ def write_bundle(
         names.remove("pulse.svg")
     contents["schematic.svg"] = svgs["schematic"].encode("utf-8")
     contents["bom.csv"] = bom_csv(design, analysis, spec, rows=rows).encode("utf-8")
-    contents["stage.s2p"] = touchstone_text(stage_network(design, analysis)).encode("latin-1")
+    contents["stage.s2p"] = stage_touchstone(design, analysis).encode("latin-1")
     contents["report.md"] = report_markdown(design, analysis, verdict, spec, notes, bom=rows,
                                             pz=pz, robustness=rob, pulse=pulse).encode("utf-8")
     contents["report.html"] = report_html(design, analysis, verdict, spec, notes, svgs=svgs,

@@ -3,8 +3,10 @@
 The Y-parameters come straight from the nodal matrices Y = G + jwC of the nominal
 linearized stage: ports at the design's input and output nodes, every other node
 internal and eliminated by a Schur complement. Source and load are left out (the
-user terminates the ports); supply and ground are AC ground. scikit-rf turns Y into
-S-parameters (50 ohm reference) and writes the Touchstone file.
+user terminates the ports); supply and ground are AC ground. Y becomes S at 50 ohm
+(S = (I - Z0 Y)(I + Z0 Y)^-1, Pozar, Microwave Engineering, ch. 4) and the Touchstone
+1.0 text is written here, so the package needs no RF library (scikit-rf, with pandas,
+is only the outside reference of the tests and the optional `to_network` API).
 """
 
 from __future__ import annotations
@@ -60,20 +62,26 @@ def sweep_range(analysis: Analysis) -> tuple[float, float]:
     return lo / 100.0, hi * 100.0
 
 
-def stage_network(
+def y_to_s(y: np.ndarray, z0: float = Z0) -> np.ndarray:
+    """S-parameters (F, 2, 2) of admittance matrices y at a real reference z0 (all ports)."""
+    eye = np.eye(y.shape[-1])
+    a = eye - z0 * y
+    b = eye + z0 * y
+    # S = a b^-1, as solve(b^T, a^T)^T (no explicit inverse)
+    return np.swapaxes(np.linalg.solve(np.swapaxes(b, -1, -2), np.swapaxes(a, -1, -2)), -1, -2)
+
+
+def stage_sparameters(
     design: Design,
     analysis: Analysis,
     f_start: float | None = None,
     f_stop: float | None = None,
     points: int | None = None,
-) -> skrf.Network:
-    """The nominal stage as a scikit-rf two-port, S-parameters at 50 ohm, log-spaced sweep.
+) -> tuple[np.ndarray, np.ndarray]:
+    """(frequencies in Hz, S of shape (F, 2, 2) at 50 ohm) of the nominal stage.
 
-    Port 1 is the input terminal, port 2 the output terminal, both against ground.
-    Defaults: `sweep_range(analysis)` and 25 points per decade.
+    Defaults: `sweep_range(analysis)` and 25 points per decade, log-spaced.
     """
-    import skrf
-
     lo, hi = sweep_range(analysis)
     f_start = lo if f_start is None else float(f_start)
     f_stop = hi if f_stop is None else float(f_stop)
@@ -82,16 +90,56 @@ def stage_network(
     if points is None:
         points = math.ceil(math.log10(f_stop / f_start) * POINTS_PER_DECADE) + 1
     f = np.logspace(math.log10(f_start), math.log10(f_stop), int(points))
-    y = two_port_y(analysis.system, f)
-    freq = skrf.Frequency.from_f(f, unit="Hz")
-    s = skrf.network.y2s(y, z0=Z0)
-    net = skrf.Network(frequency=freq, s=s, z0=Z0, name="stage")
+    return f, y_to_s(two_port_y(analysis.system, f))
+
+
+def _comment(design: Design) -> str:
     title = design.title or "stage"
-    net.comments = (
-        f"stagesynth two-port of '{_ascii(title)}': port 1 = node {_ascii(design.input)}, "
-        f"port 2 = node {_ascii(design.output)}, ground and supply at AC ground; source and "
-        "load not included; nominal operating point (hFE typ, 25 C)"
-    )
+    return (f"stagesynth two-port of '{_ascii(title)}': port 1 = node {_ascii(design.input)}, "
+            f"port 2 = node {_ascii(design.output)}, ground and supply at AC ground; source "
+            "and load not included; nominal operating point (hFE typ, 25 C)")
+
+
+def stage_touchstone(design: Design, analysis: Analysis) -> str:
+    """The Touchstone 1.0 text of the stage: S at 50 ohm, real/imaginary, frequencies in Hz.
+
+    Data lines hold f, S11, S21, S12, S22 (the order Touchstone 1.0 gives two-ports).
+    """
+    f, s = stage_sparameters(design, analysis)
+    lines = [f"!{_comment(design)}", f"# Hz S RI R {Z0!r}",
+             "!freq ReS11 ImS11 ReS21 ImS21 ReS12 ImS12 ReS22 ImS22"]
+    for k in range(f.size):
+        cells = [s[k, 0, 0], s[k, 1, 0], s[k, 0, 1], s[k, 1, 1]]
+        lines.append(" ".join([repr(float(f[k]))]
+                              + [f"{float(c.real)!r} {float(c.imag)!r}" for c in cells]))
+    return "\n".join(lines) + "\n"
+
+
+def stage_network(
+    design: Design,
+    analysis: Analysis,
+    f_start: float | None = None,
+    f_stop: float | None = None,
+    points: int | None = None,
+) -> skrf.Network:
+    """The nominal stage as a scikit-rf two-port (needs scikit-rf: pip install scikit-rf).
+
+    Port 1 is the input terminal, port 2 the output terminal, both against ground.
+    Defaults: `sweep_range(analysis)` and 25 points per decade.
+    """
+    try:
+        import skrf
+    except ImportError:
+        from ..errors import StageError
+
+        raise StageError("a scikit-rf Network needs scikit-rf, which is not installed",
+                         accepted="pip install scikit-rf (the Touchstone file stage.s2p "
+                         "needs nothing extra)") from None
+
+    f, s = stage_sparameters(design, analysis, f_start, f_stop, points)
+    net = skrf.Network(frequency=skrf.Frequency.from_f(f, unit="Hz"), s=s, z0=Z0,
+                       name="stage")
+    net.comments = _comment(design)
     return net
 
 
