@@ -210,6 +210,9 @@ def main() -> int:
                 crashes.append(f"design #{i} exit 0 but re-analysis exit {check.exit_code}")
         spec_path.unlink(missing_ok=True)
         design_path.unlink(missing_ok=True)
+        if (i + 1) % 250 == 0:
+            print(f"{i + 1} inputs, {time.perf_counter() - t_start:.0f} s, "
+                  f"{len(crashes)} crashes", flush=True)
     total = time.perf_counter() - t_start
     print(f"{args.n} inputs in {total:.0f} s (seed {args.seed})")
     for (label, code), count in sorted(codes.items()):
