@@ -31,8 +31,8 @@ from .analysis import Analysis, Environment, analyze, condition_arrays, corner_c
 from .capsizing import size_capacitors
 from .circuit import compile_design
 from .dc import solve_dc
-from .errors import StageError
-from .eseries import nearest, neighbours
+from .errors import NoDesignError, StageError
+from .eseries import nearest, neighbours, values_between
 from .evaluate import Conditions, Figures, evaluate
 from .netlist import Design
 from .spec import Spec
@@ -352,12 +352,16 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
 def synthesize(
     spec: Spec, *, prefer: str = "margin", circuit: str | None = None
 ) -> SynthesisResult:
-    """Design a stage for `spec`: the simplest circuit family that meets every requirement.
+    """Design a stage for `spec`: the most practical circuit family that meets it.
 
-    Families are tried in the registry's order of simplicity (single stages from the
-    plain common emitter on, then cascades); the first that meets every requirement is
-    kept, so the common case costs one search. When none meets, the closest (fewest
-    failed requirements, then the best margin) is returned. `circuit` forces one family.
+    Families are searched in the registry's order (single stages, then two-stage
+    circuits); rules of thumb only move a family to the back of that order, and only
+    bounds of the model refuse one outright. Once a family meets every requirement, the
+    other families with as many transistors are searched too and the most practical
+    design is kept (`practicality`: margin, part sizes, part count). When none meets,
+    the closest (fewest failed requirements, then the best margin) is returned.
+    `circuit` forces one family. A family that leaves no candidate at all is named
+    with the requirement that empties it (NoDesignError, exit 1, when nothing is left).
     """
     if circuit is not None:
         if circuit not in FAMILIES:
@@ -369,8 +373,12 @@ def synthesize(
         return _with_choice(result, (report,), [note])
     reports: list[FamilyReport] = []
     results: list[tuple[FamilyReport, SynthesisResult]] = []
+    empty: list[str] = []
     impossible = _physics_conflicts(spec)  # limits no circuit on this supply escapes
-    for name, family in FAMILIES.items():
+    met_stages: int | None = None
+    for name, family in _search_order(spec):
+        if met_stages is not None and met_stages < family.STAGES:
+            break  # more transistors than a circuit that already meets
         if impossible and results:
             reports.append(FamilyReport(name, family.TITLE, family.STAGES, False, -math.inf,
                                         tuple(c.name for c in impossible),
@@ -382,18 +390,65 @@ def synthesize(
                                         tuple(c.name for c in blocked),
                                         "; ".join(c.best for c in blocked)))
             continue
-        res = _synthesize_family(spec, family, prefer)
+        try:
+            res = _synthesize_family(spec, family, prefer)
+        except NoDesignError as exc:
+            empty.append(exc.message)
+            reports.append(FamilyReport(name, family.TITLE, family.STAGES, False, -math.inf,
+                                        ("no candidate",), exc.message))
+            continue
         rep = _family_report(family, res)
         reports.append(rep)
         results.append((rep, res))
-        if rep.meets:
-            return _with_choice(res, tuple(reports), _choice_notes(rep, reports))
+        if rep.meets and met_stages is None:
+            met_stages = family.STAGES
+    meeting = [(rep, res) for rep, res in results if rep.meets]
+    if meeting:
+        rep, res = max(meeting, key=lambda pair: practicality(pair[1]))
+        return _with_choice(res, tuple(reports), _choice_notes(rep, reports, meeting))
     if not results:  # every family blocked outright: show the first family's best try
         family = next(iter(FAMILIES.values()))
-        res = _synthesize_family(spec, family, prefer)
+        try:
+            res = _synthesize_family(spec, family, prefer)
+        except NoDesignError as exc:
+            why = "; ".join(dict.fromkeys([*empty, exc.message]))
+            raise NoDesignError(f"no circuit family has a candidate: {why}") from None
         return _with_choice(res, tuple(reports), _choice_notes(None, reports))
     rep, res = min(results, key=lambda pair: (len(pair[0].failed), -pair[0].worst_margin))
     return _with_choice(res, tuple(reports), _choice_notes(None, reports))
+
+
+def _search_order(spec: Spec) -> list[tuple[str, object]]:
+    """The registry's order with the families a rule of thumb calls unlikely moved to the
+    back (stable, so the order of simplicity holds within each group)."""
+    def hint(family) -> bool:
+        check = getattr(family, "unlikely", None)
+        return bool(check(spec)) if check is not None else False
+
+    items = list(FAMILIES.items())
+    return sorted(items, key=lambda item: hint(item[1]))
+
+
+CAP_HALVING_WORTH = 0.01  # margin one halving of the largest capacitor is worth
+R_DOUBLING_COST = 0.01  # margin each doubling of the largest resistor above 100 kΩ costs
+PART_COST = 0.004  # margin one more part costs
+MARGIN_CAP = 0.25  # margins beyond this buy no more practicality
+
+
+def practicality(result: SynthesisResult) -> float:
+    """How practical a meeting design is, in units of normalized margin: its smallest
+    margin (capped: beyond MARGIN_CAP more is no better), less a little for each
+    halving of size its largest capacitor could lose, its largest resistor above
+    100 kΩ (leakage, humidity, noise) and each part it needs."""
+    margins = [c.margin for c in result.verdict.checks if math.isfinite(c.margin)]
+    margin = min(min(margins, default=0.0), MARGIN_CAP)
+    caps = [float(p.value) for p in result.design.parts if p.kind == "capacitor"]
+    res = [float(p.value) for p in result.design.parts if p.kind == "resistor"]
+    c_big = max(caps, default=0.0)
+    r_big = max(res, default=0.0)
+    cap_cost = CAP_HALVING_WORTH * max(0.0, math.log2(c_big / 1e-6)) if c_big > 0 else 0.0
+    r_cost = R_DOUBLING_COST * max(0.0, math.log2(r_big / 100e3)) if r_big > 0 else 0.0
+    return margin - cap_cost - r_cost - PART_COST * len(result.design.parts)
 
 
 def _family_report(family, result: SynthesisResult) -> FamilyReport:
@@ -411,11 +466,14 @@ def _family_report(family, result: SynthesisResult) -> FamilyReport:
     )
 
 
-def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport]) -> list[str]:
-    """Which circuit was chosen, and what each other family reached (for the report)."""
+def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport],
+                  meeting: list | None = None) -> list[str]:
+    """Which circuit was chosen and how, and what each other family reached (for the report)."""
     lines = []
     for r in reports:
-        if r.note:
+        if r.note and r.failed == ("no candidate",):
+            lines.append(f"{r.title}: no candidate ({r.note}).")
+        elif r.note:
             lines.append(f"{r.title}: not tried ({r.note}).")
         elif r.meets:
             lines.append(f"{r.title}: meets every requirement; closest to its limit: "
@@ -425,15 +483,24 @@ def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport]) -> l
     if chosen is None:
         head = ("Circuit choice: no circuit family met every requirement; the closest "
                 "(fewest failed requirements, then the best margin) is shown.")
+        return [head, *lines]
+    failed = sorted({name for r in reports if not r.meets and not r.note for name in r.failed})
+    why = (f" Circuits that did not meet were held back by: {', '.join(failed)}."
+           if failed else "")
+    if meeting and len(meeting) > 1:
+        scored = ", ".join(f"{rep.name} {practicality(res):+.3f}" for rep, res in meeting)
+        head = (f"Circuit choice: {chosen.title}, the most practical of the {len(meeting)} "
+                f"circuits with {chosen.stages} transistor(s) that meet every requirement "
+                f"(practicality: smallest margin up to {MARGIN_CAP:.0%}, less "
+                f"{CAP_HALVING_WORTH:.0%} per halving the largest capacitor could lose "
+                f"below 1 µF, {R_DOUBLING_COST:.0%} per doubling of the largest resistor above "
+                f"100 kΩ and {PART_COST:.1%} per part; {scored}).{why}")
     else:
-        simpler = [r for r in reports if r is not chosen]
-        why = ""
-        if simpler:
-            drove = sorted({name for r in simpler for name in r.failed})
-            why = (f" Simpler circuits were tried first; the requirement(s) that drove the "
-                   f"choice: {', '.join(drove)}.")
-        head = (f"Circuit choice: {chosen.title}, the simplest circuit (in the order "
-                f"{', '.join(FAMILIES)}) that meets every requirement.{why}")
+        head = (f"Circuit choice: {chosen.title}, the only circuit with {chosen.stages} "
+                f"transistor(s) that meets every requirement (families searched in the order "
+                f"{', '.join(FAMILIES)}, rules of thumb moving unlikely ones to the back; "
+                f"circuits with more transistors are searched only when none with fewer "
+                f"meets).{why}")
     return [head, *lines]
 
 
@@ -476,7 +543,10 @@ def _synthesize_family(
     physics = [*_physics_conflicts(spec), *family.precheck(spec)]
 
     # 2-4: first cut, exact gain split, exact judgement at every corner
-    cut = family.first_cut(aim)
+    rmax = spec.parts.resistor_max
+    cut = _bounded_cut(family, aim)
+    if cut.count == 0:
+        raise NoDesignError(_empty_reason(spec, family))
     values = dict(cut.values)
     if family.GAIN_SPLIT is not None and cut.knob is not None:
         a, b = family.GAIN_SPLIT
@@ -512,6 +582,7 @@ def _synthesize_family(
                 opts = [max([x for x in around if x <= v] or [around[0]]),
                         min([x for x in around if x >= v] or [around[-1]])]
                 opts = sorted(set(opts))
+            opts = _within_limit(opts, v, series, rmax)
             if ref in family.OPTIONAL and v < 5.0:
                 opts = [FLOOR, *opts]
             options.append(opts)
@@ -530,7 +601,8 @@ def _synthesize_family(
         sized = size_capacitors(finalize(family, spec, chosen), spec.require.f_low,
                                 env=search.env, series=spec.parts.capacitors,
                                 tolerance=spec.parts.capacitor_tolerance,
-                                z_out_max=spec.require.z_out)
+                                z_out_max=spec.require.z_out,
+                                capacitor_max=spec.parts.capacitor_max)
         return sized.design, sized
 
     design, sizing = finish(best)
@@ -594,6 +666,8 @@ def _synthesize_family(
         "resistor_tolerance": spec.parts.resistor_tolerance,
         "capacitor_series": spec.parts.capacitors,
         "capacitor_tolerance": spec.parts.capacitor_tolerance,
+        "resistor_max": spec.parts.resistor_max,
+        "capacitor_max": spec.parts.capacitor_max,
         "notes": notes,
     }
     from .results import predicted_block
@@ -617,6 +691,88 @@ def _synthesize_family(
     }
     return SynthesisResult(spec, design, analysis, verdict, tuple(conflicts), tuple(notes),
                            stats)
+
+
+def _within_limit(opts: list[float], v: float, series: str, rmax: float) -> list[float]:
+    """The standard-value options of one resistor that respect resistor_max (the largest
+    standard value at or below the limit when every option lies above it)."""
+    kept = [x for x in opts if x <= rmax * (1 + 1e-9)]
+    if kept:
+        return kept
+    below = values_between(min(v, rmax) / 10.0, rmax, series)
+    return [max(below)] if below else [rmax]
+
+
+def _bounded_cut(family, spec: Spec):
+    """The family's first cut without the candidates that need a resistor above
+    resistor_max (or a non-physical value): the limit bounds every value chosen."""
+    from dataclasses import replace
+
+    cut = family.first_cut(spec)
+    if cut.count == 0:
+        return cut
+    keep = np.ones(cut.count, dtype=bool)
+    for ref, v in cut.values.items():
+        v = np.asarray(v, dtype=float)
+        part_ok = np.isfinite(v) & (v <= spec.parts.resistor_max * (1 + 1e-9))
+        if ref in family.OPTIONAL:
+            part_ok |= np.isfinite(v) & (v <= FLOOR)
+        else:
+            part_ok &= v > 0
+        keep &= part_ok
+    if np.all(keep):
+        return cut
+    return replace(cut, values={k: np.asarray(v)[keep] for k, v in cut.values.items()},
+                   knob=None if cut.knob is None else np.asarray(cut.knob)[keep],
+                   info={k: np.asarray(v)[keep] for k, v in cut.info.items()})
+
+
+_RELAXATIONS = ("resistor_max", "z_in", "supply_current", "swing", "z_out", "gain")
+
+
+def _relaxed(spec: Spec, names: tuple[str, ...]) -> Spec:
+    """`spec` with each named requirement (or part limit) made as easy as it gets."""
+    from dataclasses import replace
+
+    r, parts = spec.require, spec.parts
+    for name in names:
+        if name == "resistor_max":
+            parts = replace(parts, resistor_max=math.inf)
+        elif name == "gain":
+            r = replace(r, gain=1.0)
+        elif name == "swing":
+            r = replace(r, swing_vpp=min(r.swing_vpp, 0.1))
+        else:
+            r = replace(r, **{name: {"z_in": 0.0}.get(name)})
+    return replace(spec, require=r, parts=parts)
+
+
+def _empty_reason(spec: Spec, family) -> str:
+    """One line for a family whose first cut leaves no candidate: the requirement(s) (or
+    part limit) that empty it, found by relaxing each in turn, then pairs, and the family."""
+    r = spec.require
+    shown = {
+        "resistor_max": f"resistor_max = {_fmt(spec.parts.resistor_max, 'Ω')}",
+        "z_in": f"z_in ≥ {_fmt(r.z_in, 'Ω')}",
+        "supply_current": f"supply_current ≤ {_fmt(r.supply_current or 0.0, 'A')}",
+        "swing": f"swing ≥ {_fmt(r.swing_vpp, 'Vpp')}",
+        "z_out": f"z_out ≤ {_fmt(r.z_out or 0.0, 'Ω')}",
+        "gain": f"gain = {r.gain_db:.3g} dB",
+    }
+    present = [n for n in _RELAXATIONS if not (
+        (n == "supply_current" and r.supply_current is None)
+        or (n == "z_out" and r.z_out is None) or (n == "z_in" and r.z_in <= 0))]
+    head = f"circuit {family.NAME} ({family.TITLE}): no bias point of this circuit meets"
+    tail = f"on a {_fmt(spec.supply.voltage, 'V')} supply with this transistor"
+    for size in (1, 2):
+        for names in itertools.combinations(present, size):
+            try:
+                found = _bounded_cut(family, _relaxed(spec, names)).count > 0
+            except (ValueError, ZeroDivisionError, FloatingPointError):
+                continue
+            if found:
+                return f"{head} {' together with '.join(shown[n] for n in names)} {tail}"
+    return f"{head} these requirements together {tail}"
 
 
 def _low_frequency_droop(design: Design, spec: Spec, search: _Search) -> float:
