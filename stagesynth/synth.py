@@ -35,6 +35,16 @@ from .errors import NoDesignError, StageError
 from .eseries import nearest, neighbours, values_between
 from .evaluate import Conditions, Figures, evaluate
 from .netlist import Design
+from .practical import (
+    CAP_HALVING_WORTH,
+    MARGIN_CAP,
+    PART_COST,
+    R_DOUBLING_COST,
+    capacitor_cost,
+    capacitor_estimate,
+    leakage_limits,
+    practicality,
+)
 from .spec import Spec
 from .topologies import FAMILIES
 from .topologies.base import FLOOR, Conflict, finalize
@@ -110,6 +120,15 @@ class _Search:
         self.c_big = np.full(len(self.c_refs), big)
         self.midband = spec.require.midband
         self.evaluated = 0
+
+    def practical(self, fig: Figures) -> tuple[np.ndarray, np.ndarray]:
+        """(margin cost of the largest capacitor, f_low reachable within the part limits)
+        for every candidate in `fig` (practical.py)."""
+        d = self.template
+        c_big, feasible = capacitor_estimate(fig, self.circuit, self.spec.require.f_low,
+                                             self.spec.parts.capacitor_max,
+                                             d.source_resistance, d.load_resistance)
+        return capacitor_cost(c_big), feasible
 
     def r_matrix(self, values: dict[str, np.ndarray]) -> np.ndarray:
         return np.stack([np.asarray(values[ref], dtype=float) for ref in self.r_refs], axis=1)
@@ -221,14 +240,24 @@ def _centre_gain(search: _Search, r: np.ndarray, fig: Figures) -> tuple[np.ndarr
     return both, search.evaluate(both)
 
 
-def _rank(rows: list[Row], current: np.ndarray, prefer: str, skip=_LF_SKIP) -> np.ndarray:
-    """Candidate order, best first, per the objective of the module docstring."""
+def _rank(rows: list[Row], current: np.ndarray, prefer: str, skip=_LF_SKIP,
+          practical: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
+    """Candidate order, best first, per the objective of the module docstring.
+
+    `practical` = (margin cost of the largest capacitor, f_low reachable within the part
+    limits): the cost is taken off the margin, and a candidate whose capacitors cannot
+    reach f_low within capacitor_max (or film size where leakage matters) does not meet.
+    """
     ok = np.ones_like(current, dtype=bool)
     for row in rows:
         if row.name not in skip:
             ok &= row.ok
     score = smallest_margin(rows, skip)
     score = np.where(np.isfinite(score), score, -1e9)
+    if practical is not None:
+        cost, feasible = practical
+        ok &= feasible
+        score = score - cost
     if prefer == "current":
         primary = np.where(ok, -current / np.max(current), -1e9 + score)
         secondary = score
@@ -429,28 +458,6 @@ def _search_order(spec: Spec) -> list[tuple[str, object]]:
     return sorted(items, key=lambda item: hint(item[1]))
 
 
-CAP_HALVING_WORTH = 0.01  # margin one halving of the largest capacitor is worth
-R_DOUBLING_COST = 0.01  # margin each doubling of the largest resistor above 100 kΩ costs
-PART_COST = 0.004  # margin one more part costs
-MARGIN_CAP = 0.25  # margins beyond this buy no more practicality
-
-
-def practicality(result: SynthesisResult) -> float:
-    """How practical a meeting design is, in units of normalized margin: its smallest
-    margin (capped: beyond MARGIN_CAP more is no better), less a little for each
-    halving of size its largest capacitor could lose, its largest resistor above
-    100 kΩ (leakage, humidity, noise) and each part it needs."""
-    margins = [c.margin for c in result.verdict.checks if math.isfinite(c.margin)]
-    margin = min(min(margins, default=0.0), MARGIN_CAP)
-    caps = [float(p.value) for p in result.design.parts if p.kind == "capacitor"]
-    res = [float(p.value) for p in result.design.parts if p.kind == "resistor"]
-    c_big = max(caps, default=0.0)
-    r_big = max(res, default=0.0)
-    cap_cost = CAP_HALVING_WORTH * max(0.0, math.log2(c_big / 1e-6)) if c_big > 0 else 0.0
-    r_cost = R_DOUBLING_COST * max(0.0, math.log2(r_big / 100e3)) if r_big > 0 else 0.0
-    return margin - cap_cost - r_cost - PART_COST * len(result.design.parts)
-
-
 def _family_report(family, result: SynthesisResult) -> FamilyReport:
     from .textout import margin_text, status_text
 
@@ -559,7 +566,7 @@ def _synthesize_family(
     if family.GAIN_SPLIT is not None and cut.knob is not None and fig.gain.shape[1] > 1:
         r, fig = _centre_gain(search, r, fig)
     rows = assess(fig, aim, search.circuit)
-    order = _rank(rows, fig.supply_current[:, 0], prefer)
+    order = _rank(rows, fig.supply_current[:, 0], prefer, practical=search.practical(fig))
     t_search = time.perf_counter()
 
     # 5: standard values for the best few continuous candidates
@@ -590,7 +597,8 @@ def _synthesize_family(
     rs = np.array(snapped)
     fig_s = search.evaluate(rs)
     rows_s = assess(fig_s, aim, search.circuit)
-    order_s = _rank(rows_s, fig_s.supply_current[:, 0], prefer)
+    order_s = _rank(rows_s, fig_s.supply_current[:, 0], prefer,
+                    practical=search.practical(fig_s))
     best = int(order_s[0])
     t_snap = time.perf_counter()
 
@@ -598,11 +606,19 @@ def _synthesize_family(
         chosen = {ref: float(rs[i, j]) for j, ref in enumerate(search.r_refs)}
         chosen.update({ref: float(v) for ref, v in zip(search.c_refs, search.c_big,
                                                          strict=True)})
-        sized = size_capacitors(finalize(family, spec, chosen), spec.require.f_low,
-                                env=search.env, series=spec.parts.capacitors,
-                                tolerance=spec.parts.capacitor_tolerance,
-                                z_out_max=spec.require.z_out,
-                                capacitor_max=spec.parts.capacitor_max)
+        base = finalize(family, spec, chosen)
+        limits: dict[str, float] = {}
+        for _ in range(3):  # electrolytics only where their leakage leaves the bias alone
+            sized = size_capacitors(base, spec.require.f_low, env=search.env,
+                                    series=spec.parts.capacitors,
+                                    tolerance=spec.parts.capacitor_tolerance,
+                                    z_out_max=spec.require.z_out,
+                                    capacitor_max=spec.parts.capacitor_max, limits=limits)
+            more = {k: v for k, v in leakage_limits(sized.design, spec).items()
+                    if k not in limits}
+            if not more:
+                break
+            limits.update(more)
         return sized.design, sized
 
     design, sizing = finish(best)
@@ -640,10 +656,14 @@ def _synthesize_family(
                                           f"{_fmt_check(c)} in the closest design written",
                                           _advice(c.name, _number(c.value), spec, c.unit)))
     polarity = "PNP" if spec.transistor.polarity == "pnp" else "NPN"
+    from .leakage import capacitor_kinds
+
+    kinds = capacitor_kinds(design, spec)
     notes = [
         f"Circuit: {family.TITLE} ({polarity}).",
         *family.describe(spec, design, analysis),
         *sizing.notes,
+        *_kind_notes(kinds, spec),
         *yield_notes,
         "Choice among candidates: every design meeting all requirements was ranked by its "
         "smallest normalized margin (value beyond the limit as a fraction of the limit), "
@@ -666,6 +686,7 @@ def _synthesize_family(
         "resistor_tolerance": spec.parts.resistor_tolerance,
         "capacitor_series": spec.parts.capacitors,
         "capacitor_tolerance": spec.parts.capacitor_tolerance,
+        "capacitor_kinds": {ref: k.to_dict() for ref, k in kinds.items()},
         "resistor_max": spec.parts.resistor_max,
         "capacitor_max": spec.parts.capacitor_max,
         "notes": notes,
@@ -691,6 +712,24 @@ def _synthesize_family(
     }
     return SynthesisResult(spec, design, analysis, verdict, tuple(conflicts), tuple(notes),
                            stats)
+
+
+def _kind_notes(kinds: dict, spec: Spec) -> list[str]:
+    """The part limits and, per capacitor, whether it may be an electrolytic (for the report)."""
+    from .leakage import BIAS_SHIFT_MAX
+
+    lines = [f"Part limits: resistors up to {_fmt(spec.parts.resistor_max, 'Ω')}, capacitors up "
+             f"to {_fmt(spec.parts.capacitor_max, 'F')}; the bias was chosen with the "
+             "capacitor sizes each candidate needs (the largest one costs a little margin per "
+             "doubling)."]
+    if kinds:
+        lines.append(
+            "Capacitor types (an electrolytic leaks about 0.01·C·V µA, at least 3 µA, common "
+            f"practice; it may sit only where that moves no collector current by more than "
+            f"{100 * BIAS_SHIFT_MAX:g} %): "
+            + "; ".join(f"{ref} {_fmt(k.value, 'F')}: {k.kind} ({k.reason})"
+                        for ref, k in kinds.items()) + ".")
+    return lines
 
 
 def _within_limit(opts: list[float], v: float, series: str, rmax: float) -> list[float]:
