@@ -23,6 +23,8 @@ R_DOUBLING_COST = 0.01  # margin each doubling of the largest resistor above 100
 PART_COST = 0.004  # margin one more part costs
 MARGIN_CAP = 0.25  # margins beyond this buy no more practicality
 CAP_REFERENCE = 1e-6  # F: capacitors up to this size cost nothing in the objective
+SIZING_ALLOWANCE = 1.4  # the sized capacitors' excess over the bare estimate (tolerance,
+#                         the corner's own margin, rounding up to the series)
 
 
 def shorted_resistances(circuit, g: np.ndarray, source_resistance: float,
@@ -70,17 +72,19 @@ def _stamp(y: np.ndarray, a: int, b: int, val: float, n: int) -> None:
 def capacitor_estimate(fig, circuit, f_low: float, capacitor_max: float,
                        source_resistance: float, load_resistance: float
                        ) -> tuple[np.ndarray, np.ndarray]:
-    """(largest capacitor (K,), feasible (K,)) for K candidates evaluated in `fig`.
+    """(largest capacitor (K,), f_low margin (K,)) for K candidates evaluated in `fig`.
 
     The corner is shared as capsizing.py shares it; each capacitor is capped at
     capacitor_max, and at FILM_MAX where an electrolytic's leakage would move a
     collector current by more than BIAS_SHIFT_MAX; capped capacitors leave their share
-    to the others. Infeasible: the capped capacitors alone already exceed the corner.
+    to the others. Where the capped capacitors alone already exceed the corner, the
+    margin is 1 − f_est/f_low with every capacitor at its ceiling (negative); else +inf
+    (the sizing then meets f_low exactly).
     """
     k = fig.gain.shape[0]
     ncap = len(circuit.capacitors)
     if ncap == 0 or f_low <= 0:
-        return np.zeros(k), np.ones(k, dtype=bool)
+        return np.zeros(k), np.full(k, np.inf)
     sys = fig.nominal
     res = shorted_resistances(circuit, sys.G, source_resistance, load_resistance)
     res = np.where(np.isfinite(res) & (res > 0), res, 1e12)
@@ -88,7 +92,9 @@ def capacitor_estimate(fig, circuit, f_low: float, capacitor_max: float,
     dom = np.argmin(res, axis=1)
     share = np.full((k, ncap), (1.0 - DOMINANT_SHARE) / max(ncap - 1, 1))
     share[np.arange(k), dom] = DOMINANT_SHARE if ncap > 1 else 1.0
-    c = 1.0 / (w * share * res)
+    # the sizing that follows aims below f_low with every capacitor at -tolerance and
+    # rounds to the series: judge sizes and leakage with that much to spare
+    c = SIZING_ALLOWANCE / (w * share * res)
     # leakage: DC volts across each capacitor at the nominal point, sensitivity per ampere
     m = fig.dc.v.shape[0] // k
     v = fig.dc.v[::m]
@@ -103,12 +109,17 @@ def capacitor_estimate(fig, circuit, f_low: float, capacitor_max: float,
         cap = np.where(leaky, np.minimum(cap, FILM_MAX), cap)
         held = c >= cap
         used = np.sum(np.where(held, 1.0 / (res * cap), 0.0), axis=1)
-        budget = w - used
-        free_w = np.sum(np.where(held, 0.0, share * w), axis=1)
+        budget = w / SIZING_ALLOWANCE - used
+        free_w = np.sum(np.where(held, 0.0, 1.0 / (res * c)), axis=1)
         scale = np.where(budget > 0, free_w / np.maximum(budget, 1e-30), np.inf)
         c = np.where(held, cap, c * scale[:, None])
-    feasible = np.all(c <= cap * (1 + 1e-9), axis=1) & np.all(np.isfinite(c), axis=1)
-    return np.max(np.where(np.isfinite(c), c, np.inf), axis=1), feasible
+    reached = np.sum(1.0 / (res * np.where(np.isfinite(c), c, 1e300)), axis=1)
+    feasible = (np.all(c <= cap * (1 + 1e-9), axis=1) & np.all(np.isfinite(c), axis=1)
+                & (reached <= w / SIZING_ALLOWANCE * (1 + 1e-6)))
+    # where infeasible: the corner every capacitor at its ceiling gives, as a margin
+    f_est = SIZING_ALLOWANCE * np.sum(1.0 / (res * cap), axis=1) / (2.0 * math.pi)
+    lf_margin = np.where(feasible, np.inf, 1.0 - f_est / f_low)
+    return np.max(np.where(np.isfinite(c), c, cap), axis=1), lf_margin
 
 
 def capacitor_cost(c_big: np.ndarray) -> np.ndarray:

@@ -122,13 +122,13 @@ class _Search:
         self.evaluated = 0
 
     def practical(self, fig: Figures) -> tuple[np.ndarray, np.ndarray]:
-        """(margin cost of the largest capacitor, f_low reachable within the part limits)
-        for every candidate in `fig` (practical.py)."""
+        """(margin cost of the largest capacitor, estimated f_low margin within the part
+        limits) for every candidate in `fig` (practical.py)."""
         d = self.template
-        c_big, feasible = capacitor_estimate(fig, self.circuit, self.spec.require.f_low,
-                                             self.spec.parts.capacitor_max,
-                                             d.source_resistance, d.load_resistance)
-        return capacitor_cost(c_big), feasible
+        c_big, lf_margin = capacitor_estimate(fig, self.circuit, self.spec.require.f_low,
+                                              self.spec.parts.capacitor_max,
+                                              d.source_resistance, d.load_resistance)
+        return capacitor_cost(c_big), lf_margin
 
     def r_matrix(self, values: dict[str, np.ndarray]) -> np.ndarray:
         return np.stack([np.asarray(values[ref], dtype=float) for ref in self.r_refs], axis=1)
@@ -176,16 +176,22 @@ class _Search:
         the spec's): secant steps on 1/|A|, nearly linear in RE1."""
         from .ac import linearize
 
-        a, b = self.family.GAIN_SPLIT
-        i4, i5 = self.r_refs.index(a), self.r_refs.index(b)
-        total = r[:, i4] + r[:, i5]
+        split = self.family.GAIN_SPLIT
         k = r.shape[0]
+        r0 = r.copy()
+        if split is not None:
+            i4, i5 = self.r_refs.index(split[0]), self.r_refs.index(split[1])
+            total = r[:, i4] + r[:, i5]
+            r0[:, i4] = FLOOR
+            r0[:, i5] = total - FLOOR
+            lo, hi = FLOOR, total - FLOOR
+        else:  # a single resistor that no DC current flows through (GAIN_KNOB)
+            i4, i5 = self.r_refs.index(self.family.GAIN_KNOB), None
+            r0[:, i4] = np.clip(re1, 1.0, self.spec.parts.resistor_max)
+            lo, hi = 1.0, np.full(k, self.spec.parts.resistor_max)
         nominal = Conditions(self.conditions.hfe25[:1], self.conditions.ambient[:1],
                              self.conditions.supply[:1])
         d = self.template
-        r0 = r.copy()
-        r0[:, i4] = FLOOR
-        r0[:, i5] = total - FLOOR
         dc = solve_dc(self.circuit, r0, np.repeat(nominal.supply, k),
                       np.repeat(nominal.hfe25, k, axis=0), np.repeat(nominal.ambient, k),
                       d.source_resistance, d.load_resistance)
@@ -195,13 +201,13 @@ class _Search:
         def inv_gain(x: np.ndarray) -> np.ndarray:
             rr = r0.copy()
             rr[:, i4] = x
-            rr[:, i5] = total - x
+            if i5 is not None:
+                rr[:, i5] = total - x
             sys = linearize(self.circuit, dc, rr, caps, d.source_resistance,
                             d.load_resistance, d.load_capacitance)
             return 1.0 / np.maximum(np.abs(sys.gain(fm)[:, 0]), 1e-30)
 
         target = 1.0 / (self.spec.require.gain if target_gain is None else target_gain)
-        lo, hi = FLOOR, total - FLOOR
         x0 = np.clip(re1, lo, hi)
         x1 = np.clip(x0 * 1.2 + 1.0, lo, hi)
         y0, y1 = inv_gain(x0), inv_gain(x1)
@@ -222,8 +228,11 @@ def _centre_gain(search: _Search, r: np.ndarray, fig: Figures) -> tuple[np.ndarr
     middle of the spread, not the nominal value, on target. Candidates are kept where
     the new split is not better for them.
     """
-    a, b = search.family.GAIN_SPLIT
-    i4, i5 = search.r_refs.index(a), search.r_refs.index(b)
+    split = search.family.GAIN_SPLIT
+    if split is not None:
+        i4, i5 = search.r_refs.index(split[0]), search.r_refs.index(split[1])
+    else:  # the single DC-free knob (GAIN_KNOB)
+        i4, i5 = search.r_refs.index(search.family.GAIN_KNOB), None
     g_db = fig.gain_db
     offset = 0.5 * (np.max(g_db, axis=1) + np.min(g_db, axis=1)) - g_db[:, 0]
     if np.all(np.abs(offset) < 0.02):
@@ -231,7 +240,8 @@ def _centre_gain(search: _Search, r: np.ndarray, fig: Figures) -> tuple[np.ndarr
     aim = search.spec.require.gain * 10.0 ** (-offset / 20.0)
     r2 = r.copy()
     r2[:, i4] = search.tune_gain(r, r[:, i4], aim)
-    r2[:, i5] = r[:, i4] + r[:, i5] - r2[:, i4]
+    if i5 is not None:
+        r2[:, i5] = r[:, i4] + r[:, i5] - r2[:, i4]
     fig2 = search.evaluate(r2)
     tol = search.spec.require.gain_tolerance_db
     err = lambda f: np.max(np.abs(f.gain_db - search.spec.require.gain_db), axis=1)  # noqa: E731
@@ -244,9 +254,10 @@ def _rank(rows: list[Row], current: np.ndarray, prefer: str, skip=_LF_SKIP,
           practical: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
     """Candidate order, best first, per the objective of the module docstring.
 
-    `practical` = (margin cost of the largest capacitor, f_low reachable within the part
-    limits): the cost is taken off the margin, and a candidate whose capacitors cannot
-    reach f_low within capacitor_max (or film size where leakage matters) does not meet.
+    `practical` = (margin cost of the largest capacitor, estimated f_low margin within the
+    part limits): the cost is taken off the margin, and a candidate whose capacitors cannot
+    reach f_low within capacitor_max (or film size where leakage matters) does not meet;
+    its estimated f_low shortfall joins its smallest margin.
     """
     ok = np.ones_like(current, dtype=bool)
     for row in rows:
@@ -255,9 +266,9 @@ def _rank(rows: list[Row], current: np.ndarray, prefer: str, skip=_LF_SKIP,
     score = smallest_margin(rows, skip)
     score = np.where(np.isfinite(score), score, -1e9)
     if practical is not None:
-        cost, feasible = practical
-        ok &= feasible
-        score = score - cost
+        cost, lf_margin = practical
+        ok &= lf_margin >= 0
+        score = np.minimum(score, lf_margin) - cost
     if prefer == "current":
         primary = np.where(ok, -current / np.max(current), -1e9 + score)
         secondary = score
@@ -560,10 +571,13 @@ def _synthesize_family(
         total = cut.values[a] + cut.values[b]
         values[a] = search.tune_gain(search.r_matrix(values), cut.knob)
         values[b] = total - values[a]
+    elif getattr(family, "GAIN_KNOB", None) and cut.knob is not None:
+        values[family.GAIN_KNOB] = search.tune_gain(search.r_matrix(values), cut.knob)
     r = search.r_matrix(values)
     r = r[search.screen(r, aim)]
     fig = search.evaluate(r)
-    if family.GAIN_SPLIT is not None and cut.knob is not None and fig.gain.shape[1] > 1:
+    tuned = family.GAIN_SPLIT is not None or getattr(family, "GAIN_KNOB", None)
+    if tuned and cut.knob is not None and fig.gain.shape[1] > 1:
         r, fig = _centre_gain(search, r, fig)
     rows = assess(fig, aim, search.circuit)
     order = _rank(rows, fig.supply_current[:, 0], prefer, practical=search.practical(fig))
