@@ -29,7 +29,7 @@ from stagesynth.synth import synthesize
 from stagesynth.topologies import common_emitter
 
 sys.path.insert(0, str(Path(__file__).parent))
-from independent import refmodel  # noqa: E402
+from independent import refmodel
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -135,7 +135,7 @@ def test_common_base_forced_on_a_high_impedance_spec_names_requirement_and_famil
     result = _cli(["design", str(ROOT / "specs" / "hydrophone-front-end.toml"),
                    "--circuit", "cb", "--out", str(tmp_path / "out")])
     assert result.exit_code == 1
-    assert "Traceback" not in result.output and result.exception is None or isinstance(
+    assert ("Traceback" not in result.output and result.exception is None) or isinstance(
         result.exception, SystemExit)
     last = result.output.strip().splitlines()[-1]
     assert "cb" in last and "z_in" in last
