@@ -140,7 +140,7 @@ def size_capacitors(
     cont = np.minimum(cont, top)
     # uniform scaling moves every low-frequency time constant together: refine (the
     # capacitors held at their ceiling stay there, the others take up their share)
-    for _ in range(4):
+    for _ in range(6):
         _, worst = worst_f_low(cont[None, :])
         if not np.isfinite(worst[0]) or worst[0] <= 0:
             break

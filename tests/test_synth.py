@@ -141,7 +141,10 @@ def feasible_specs(draw: st.DrawFn) -> dict[str, Any]:
         preset = draw(st.sampled_from(["generic-npn", "generic-pnp", "lownoise-npn"]))
         vcc = draw(st.sampled_from([5.0, 6.0, 9.0, 12.0, 15.0, 18.0, 24.0]))
         tol = draw(st.sampled_from([0.0, 0.05, 0.1]))
-        f_low = _sig(10 ** draw(st.floats(math.log10(0.5), 2.0)))
+        # from 5 Hz: below it a bypassed emitter needs more than capacitor_max's default
+        # 470 µF (a 1 mA stage's bypass sees about re + RE1 ~ 50 Ω: 1/(2π·470 µF·50 Ω) ~ 7 Hz)
+        # or an electrolytic whose leakage (common practice) moves the bias
+        f_low = _sig(10 ** draw(st.floats(math.log10(5.0), 2.0)))
         f_high = _sig(10 ** draw(st.floats(math.log10(5e3), math.log10(2e5))))
         rl = draw(st.sampled_from([4.7e3, 10e3, 22e3, 47e3, 100e3]))
         cl = draw(st.sampled_from([0.0, 100e-12, 470e-12]))
