@@ -255,9 +255,11 @@ def _rank(rows: list[Row], current: np.ndarray, prefer: str, skip=_LF_SKIP,
     """Candidate order, best first, per the objective of the module docstring.
 
     `practical` = (margin cost of the largest capacitor, estimated f_low margin within the
-    part limits): the cost is taken off the margin, and a candidate whose capacitors cannot
-    reach f_low within capacitor_max (or film size where leakage matters) does not meet;
-    its estimated f_low shortfall joins its smallest margin.
+    part limits): the cost is taken off the margin and the estimated f_low shortfall joins
+    the smallest margin. The estimate is conservative, so it only orders: candidates
+    meeting every requirement judged exactly come first, those of them whose capacitors
+    also reach f_low within the limits (capacitor_max, film size where leakage matters)
+    before the others.
     """
     ok = np.ones_like(current, dtype=bool)
     for row in rows:
@@ -265,17 +267,21 @@ def _rank(rows: list[Row], current: np.ndarray, prefer: str, skip=_LF_SKIP,
             ok &= row.ok
     score = smallest_margin(rows, skip)
     score = np.where(np.isfinite(score), score, -1e9)
+    best_ok = ok
     if practical is not None:
         cost, lf_margin = practical
-        ok &= lf_margin >= 0
+        best_ok = ok & (lf_margin >= 0)
+        if not np.any(best_ok):
+            best_ok = ok
         score = np.minimum(score, lf_margin) - cost
     if prefer == "current":
-        primary = np.where(ok, -current / np.max(current), -1e9 + score)
+        primary = np.where(best_ok, -current / np.max(current),
+                           np.where(ok, -1e6 + score, -1e9 + score))
         secondary = score
     else:
-        best = np.max(np.where(ok, score, -np.inf)) if np.any(ok) else np.max(score)
-        tied = ok & (score >= best - TIE)
-        primary = np.where(tied, best, score)
+        best = np.max(np.where(best_ok, score, -np.inf)) if np.any(best_ok) else np.max(score)
+        tied = best_ok & (score >= best - TIE)
+        primary = np.where(tied, best, score) + np.where(ok, 1e6, 0.0)
         secondary = -current
     return np.lexsort((secondary, primary))[::-1]
 
