@@ -163,10 +163,10 @@ def unlikely(spec: Spec) -> list[Conflict]:
     if spec.require.z_in <= bound:
         return []
     return [Conflict(
-        "z_in", f"≥ {spec.require.z_in:.4g} Ω",
+        "z_in", f"≥ {eng(spec.require.z_in, 'Ω', 4)}",
         f"a common-base input looks into the emitter, about RE ∥ re with re = VT/IC; at the "
         f"smallest bias this family's first cut uses ({IC_MIN * 1e6:.0f} µA) that stays below "
-        f"{bound:.4g} Ω",
+        f"{eng(bound, 'Ω', 4)}",
         "use a common-emitter stage or a follower for a high input impedance")]
 
 

@@ -29,6 +29,7 @@ import numpy as np
 
 from ..netlist import Design
 from ..spec import Spec
+from ..units import format_quantity as eng
 from .base import Conflict, FirstCut, make_design
 from .ce_ef import VT25, divider, par, rails, within_current
 from .common_emitter import _vbe, ic_range
@@ -189,10 +190,10 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     t = loop_gain(spec, v, q1.ic, q2.ic)
     dc_factor = v["R5"] / (v["R5"] + v["R8"])
     return [
-        f"Feedback pair: Q1 (IC ≈ {q1.ic * 1e3:.3g} mA) drives Q2 (IC ≈ {q2.ic * 1e3:.3g} mA, "
-        f"VCE ≈ {q2.vce:.3g} V); RF = {v['R8']:.4g} Ω from the output to Q1's emitter and "
-        f"RE' = R4 ∥ R5 ≈ {re_ac:.4g} Ω set the closed-loop gain ≈ 1 + RF/RE' = "
-        f"{ideal:.4g} V/V ({20 * np.log10(ideal):.2f} dB) at Q1's base (series–shunt "
+        f"Feedback pair: Q1 (IC ≈ {eng(q1.ic, 'A', 3)}) drives Q2 (IC ≈ {eng(q2.ic, 'A', 3)}, "
+        f"VCE ≈ {eng(q2.vce, 'V', 3)}); RF = {eng(v['R8'], 'Ω', 4)} from the output to Q1's emitter and "
+        f"RE' = R4 ∥ R5 ≈ {eng(re_ac, 'Ω', 4)} set the closed-loop gain ≈ 1 + RF/RE' = "
+        f"{eng(ideal, 'V/V', 4)} ({20 * np.log10(ideal):.2f} dB) at Q1's base (series–shunt "
         "feedback, Sedra & Smith).",
         f"Loop gain T ≈ {t:.3g} at midband (textbook estimate): hFE and temperature move the "
         f"gain by about 1/(1 + T) ≈ {100 / (1 + t):.2g} % of their effect without feedback, "
@@ -200,6 +201,6 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
         "resistance by about (1 + T).",
         f"DC: C3 takes R4 out of the DC loop, so the output's DC level follows Q1's emitter "
         f"with 1 + RF/R5 ≈ {1 / dc_factor:.3g} only; VBE drift is not multiplied by the "
-        f"AC gain. Q1's collector sits at Q2's VBE plus R7's drop ({v['R7']:.4g} Ω, bypassed by "
+        f"AC gain. Q1's collector sits at Q2's VBE plus R7's drop ({eng(v['R7'], 'Ω', 4)}, bypassed by "
         "C4 so that Q2 gives the loop its full gain).",
     ]
