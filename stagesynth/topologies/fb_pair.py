@@ -191,7 +191,8 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     dc_factor = v["R5"] / (v["R5"] + v["R8"])
     return [
         f"Feedback pair: Q1 (IC ≈ {eng(q1.ic, 'A', 3)}) drives Q2 (IC ≈ {eng(q2.ic, 'A', 3)}, "
-        f"VCE ≈ {eng(q2.vce, 'V', 3)}); RF = {eng(v['R8'], 'Ω', 4)} from the output to Q1's emitter and "
+        f"VCE ≈ {eng(q2.vce, 'V', 3)}); RF = {eng(v['R8'], 'Ω', 4)} from the output to Q1's "
+        "emitter and "
         f"RE' = R4 ∥ R5 ≈ {eng(re_ac, 'Ω', 4)} set the closed-loop gain ≈ 1 + RF/RE' = "
         f"{eng(ideal, 'V/V', 4)} ({20 * np.log10(ideal):.2f} dB) at Q1's base (series–shunt "
         "feedback, Sedra & Smith).",
@@ -201,6 +202,6 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
         "resistance by about (1 + T).",
         f"DC: C3 takes R4 out of the DC loop, so the output's DC level follows Q1's emitter "
         f"with 1 + RF/R5 ≈ {1 / dc_factor:.3g} only; VBE drift is not multiplied by the "
-        f"AC gain. Q1's collector sits at Q2's VBE plus R7's drop ({eng(v['R7'], 'Ω', 4)}, bypassed by "
-        "C4 so that Q2 gives the loop its full gain).",
+        f"AC gain. Q1's collector sits at Q2's VBE plus R7's drop ({eng(v['R7'], 'Ω', 4)}, "
+        "bypassed by C4 so that Q2 gives the loop its full gain).",
     ]
