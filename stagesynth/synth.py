@@ -450,7 +450,11 @@ def synthesize(
             met_stages = family.STAGES
     meeting = [(rep, res) for rep, res in results if rep.meets]
     if meeting:
-        rep, res = max(meeting, key=lambda pair: practicality(pair[1]))
+        if prefer == "current":  # the asked objective decides between families too
+            rep, res = min(meeting, key=lambda pair: (pair[1].analysis.supply_current,
+                                                      -practicality(pair[1])))
+        else:
+            rep, res = max(meeting, key=lambda pair: practicality(pair[1]))
         return _with_choice(res, tuple(reports), _choice_notes(rep, reports, meeting))
     if not results:  # every family blocked outright: show the first family's best try
         family = next(iter(FAMILIES.values()))
