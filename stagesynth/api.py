@@ -339,6 +339,15 @@ def report_files() -> list[str]:
     return list(BUNDLE_FILES)
 
 
+def _recorded_limit(value, default: float) -> float:
+    """A part limit recorded in a design file, when it is a positive finite number."""
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return default
+    return number if math.isfinite(number) and number > 0 else default
+
+
 def resize_capacitors(design: Design | str | Path, f_low: float,
                       spec: Spec | str | Path | Mapping[str, Any] | None = None
                       ) -> CapacitorChange:
@@ -365,12 +374,15 @@ def resize_capacitors(design: Design | str | Path, f_low: float,
     recorded = syn if isinstance(syn, Mapping) else {}
     if spec_obj is not None:
         series, tol = spec_obj.parts.capacitors, spec_obj.parts.capacitor_tolerance
+        cap_max = spec_obj.parts.capacitor_max
     else:  # what the design was made with, else the spec format's defaults
         series = recorded.get("capacitor_series", "E6")
         tol = float(recorded.get("capacitor_tolerance", 0.1))
+        cap_max = _recorded_limit(recorded.get("capacitor_max"), 470e-6)
     before = _analyze(d, environment=env)
     sizing = size_capacitors(d, target, env=env, series=series, tolerance=tol,
-                             z_out_max=spec_obj.require.z_out if spec_obj else None)
+                             z_out_max=spec_obj.require.z_out if spec_obj else None,
+                             capacitor_max=cap_max)
     new = replace(sizing.design, band=(target, f_high))
     after = _analyze(new, environment=env)
     new = replace(new, predicted={**dict(d.predicted), **predicted_block(after)})

@@ -94,12 +94,17 @@ def size_capacitors(
     series: str = "E6",
     tolerance: float = 0.1,
     z_out_max: float | None = None,
+    capacitor_max: float = math.inf,
+    limits: dict[str, float] | None = None,
 ) -> CapSizing:
     """Capacitor values (from `series`) so that f_low holds with every capacitor at -tolerance,
     at nominal and at every corner of `env`.
 
     With `z_out_max`, the capacitors in the output path are also made large enough that
-    their reactance at midband keeps the output impedance within it.
+    their reactance at midband keeps the output impedance within it. No capacitor exceeds
+    `capacitor_max`, nor its own entry in `limits` (e.g. a film-sized ceiling where an
+    electrolytic's leakage would move the bias): a capacitor held at its ceiling leaves
+    its share of the corner to the others.
     """
     circuit = compile_design(design)
     conds = condition_arrays(circuit, corner_conditions(design, env))  # nominal + corners
@@ -113,6 +118,9 @@ def size_capacitors(
     share = _shares(res)
     target = f_low * F_LOW_MARGIN
     cont = np.array([1.0 / (2 * math.pi * target * share[ref] * res[ref]) for ref in refs])
+    ceiling = np.array([min(capacitor_max, (limits or {}).get(ref, math.inf)) for ref in refs])
+    # the largest standard value at or below each ceiling
+    top = np.array([_at_most(x, series) for x in ceiling])
 
     zcache: dict[bytes, np.ndarray] = {}
 
@@ -131,19 +139,28 @@ def size_capacitors(
         f_low = np.max(f.f_low, axis=1)
         return f_low[:k], f_low[k:]
 
-    # uniform scaling moves every low-frequency time constant together: refine twice
-    for _ in range(2):
+    cont = np.minimum(cont, top)
+    # uniform scaling moves every low-frequency time constant together: refine (the
+    # capacitors held at their ceiling stay there, the others take up their share)
+    for _ in range(6):
         _, worst = worst_f_low(cont[None, :])
         if not np.isfinite(worst[0]) or worst[0] <= 0:
             break
-        cont = cont * (worst[0] / target)
+        free = cont < top * (1 - 1e-9)
+        if not np.any(free):
+            break
+        scale = worst[0] / target
+        if abs(scale - 1.0) < 0.01:
+            break
+        cont = np.where(free, np.minimum(cont * scale, top), cont)
     z_limit = None if z_out_max is None else F_LOW_MARGIN * z_out_max
     if z_limit is not None:
-        cont = _widen_for_z_out(cont, worst_f_low, zcache, z_limit)
+        cont = np.minimum(_widen_for_z_out(cont, worst_f_low, zcache, z_limit), top)
     # exact search over the neighbouring standard values of every capacitor
     options = [sorted({nearest(v, series), *neighbours(v, series, 1)}) for v in cont]
-    options = [[x for x in opt if 0.5 * v <= x <= 2.5 * v] or [nearest(v, series)]
-               for opt, v in zip(options, cont, strict=True)]
+    options = [[x for x in opt if 0.5 * v <= x <= 2.5 * v and x <= cap * (1 + 1e-9)]
+               or [min(nearest(v, series), cap)]
+               for opt, v, cap in zip(options, cont, top, strict=True)]
     combos = np.array(list(itertools.product(*options)))
     nominal, worst = worst_f_low(combos)
     ok = worst <= target
@@ -188,6 +205,17 @@ def _widen_for_z_out(cont: np.ndarray, run, zcache, z_limit: float) -> np.ndarra
             break  # capacitors cannot help: the resistors set z_out
         cont = np.where(gain >= 0.2 * np.max(gain), cont * 2.0, cont)
     return cont
+
+
+def _at_most(limit: float, series: str) -> float:
+    """The largest standard value of `series` at or below `limit` (inf stays inf)."""
+    if not math.isfinite(limit):
+        return math.inf
+    near = nearest(limit, series)
+    if near <= limit * (1 + 1e-9):
+        return near
+    below = [x for x in neighbours(limit, series, 1) if x <= limit * (1 + 1e-9)]
+    return max(below) if below else limit
 
 
 def _shares(res: dict[str, float]) -> dict[str, float]:

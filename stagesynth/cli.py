@@ -48,7 +48,7 @@ def user_errors(func):
         try:
             return func(*args, **kwargs)
         except StageError as exc:
-            _fail(f"error: {exc}", exc.exit_code)
+            _fail(f"{'no design' if exc.exit_code == 1 else 'error'}: {exc}", exc.exit_code)
         except KeyboardInterrupt:
             changed = COMMITTED[done:]
             if changed:
@@ -242,7 +242,9 @@ def design(
     if len(result.families) > 1:
         typer.echo("Each circuit family tried:", err=True)
         for f in result.families:
-            if f.note:
+            if f.note and f.failed == ("no candidate",):
+                typer.echo(f"  {f.name}: no candidate ({f.note})", err=True)
+            elif f.note:
                 typer.echo(f"  {f.name}: not tried ({f.note})", err=True)
             else:
                 typer.echo(f"  {f.name}: fails {', '.join(f.failed)} ({f.tightest})", err=True)

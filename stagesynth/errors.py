@@ -49,3 +49,10 @@ class ConvergenceError(Exception):
 
 class OutputExistsError(StageError):
     """An output file exists that stagesynth did not write; refuse to overwrite it."""
+
+
+class NoDesignError(StageError):
+    """No candidate of a circuit family survives a requirement: exit 1 (the spec is valid,
+    but unreachable), one line naming the requirement and the family."""
+
+    exit_code = 1

@@ -99,6 +99,8 @@ class Parts:
     resistor_tolerance: float = 0.01
     capacitors: str = "E6"
     capacitor_tolerance: float = 0.10
+    resistor_max: float = 1e6  # ohm: the largest resistor the synthesizer may choose
+    capacitor_max: float = 470e-6  # farad: the largest capacitor it may choose
 
 
 @dataclass(frozen=True)
@@ -130,7 +132,8 @@ _SECTION_KEYS: dict[str, tuple[str, ...]] = {
         "ambient", "inverting", "z_out", "yield",
         "return_loss",
     ),
-    "parts": ("resistors", "resistor_tolerance", "capacitors", "capacitor_tolerance"),
+    "parts": ("resistors", "resistor_tolerance", "capacitors", "capacitor_tolerance",
+              "resistor_max", "capacitor_max"),
 }
 TOP_KEYS: tuple[str, ...] = ("title", "supply", "source", "load", "require", "transistor", "parts")
 REQUIRED_DEVICE_KEYS: tuple[str, ...] = ("polarity", "hfe", "vbe", "ft", "c_cb")
@@ -656,7 +659,27 @@ def _parts(t: Mapping[str, Any], file: str) -> Parts:
             values[key] = eseries.series_name(t[key], key=f"parts.{key}", file=file)
     for key in ("resistor_tolerance", "capacitor_tolerance"):
         values[key] = _tolerance(t, key, "parts", file, getattr(default, key))
+    values.update(_part_limits(t, file, default))
     return dataclasses.replace(default, **values)
+
+
+# the smallest limits that still leave a standard value for every part a family uses
+_PART_LIMIT_FLOOR = {"resistor_max": (1e3, "Ω", '"1 MΩ" (at least 1 kΩ)'),
+                     "capacitor_max": (100e-9, "F", '"470 µF" (at least 100 nF)')}
+
+
+def _part_limits(t: Mapping[str, Any], file: str, default: Parts) -> dict[str, float]:
+    """resistor_max and capacitor_max: positive, finite and not so small that no bias works."""
+    out = {}
+    for key, (floor, unit, example) in _PART_LIMIT_FLOOR.items():
+        value = _quantity(t, key, "parts", file, unit, ">0", getattr(default, key))
+        if not math.isfinite(value) or value < floor:
+            raise StageError(f"must be a finite value of at least "
+                             f"{format_quantity(floor, unit)}, got "
+                             f"{format_quantity(value, unit)}", file=file,
+                             key=f"parts.{key}", accepted=f"e.g. {example}")
+        out[key] = value
+    return out
 
 
 def load_spec(path: str | Path) -> Spec:
@@ -737,7 +760,9 @@ def spec_to_toml(spec: Spec) -> str:
     lines += ["", "[parts]", f"resistors = {_toml_str(p.resistors)}",
               f"resistor_tolerance = {_q(p.resistor_tolerance, '%')}",
               f"capacitors = {_toml_str(p.capacitors)}",
-              f"capacitor_tolerance = {_q(p.capacitor_tolerance, '%')}"]
+              f"capacitor_tolerance = {_q(p.capacitor_tolerance, '%')}",
+              f"resistor_max = {_q(p.resistor_max, 'Ω')}",
+              f"capacitor_max = {_q(p.capacitor_max, 'F')}"]
     return "\n".join(_with_ranges(spec, lines)) + "\n"
 
 

@@ -31,10 +31,20 @@ from .analysis import Analysis, Environment, analyze, condition_arrays, corner_c
 from .capsizing import size_capacitors
 from .circuit import compile_design
 from .dc import solve_dc
-from .errors import StageError
-from .eseries import nearest, neighbours
+from .errors import NoDesignError, StageError
+from .eseries import nearest, neighbours, values_between
 from .evaluate import Conditions, Figures, evaluate
 from .netlist import Design
+from .practical import (
+    CAP_HALVING_WORTH,
+    MARGIN_CAP,
+    PART_COST,
+    R_DOUBLING_COST,
+    capacitor_cost,
+    capacitor_estimate,
+    leakage_limits,
+    practicality,
+)
 from .spec import Spec
 from .topologies import FAMILIES
 from .topologies.base import FLOOR, Conflict, finalize
@@ -111,6 +121,15 @@ class _Search:
         self.midband = spec.require.midband
         self.evaluated = 0
 
+    def practical(self, fig: Figures) -> tuple[np.ndarray, np.ndarray]:
+        """(margin cost of the largest capacitor, estimated f_low margin within the part
+        limits) for every candidate in `fig` (practical.py)."""
+        d = self.template
+        c_big, lf_margin = capacitor_estimate(fig, self.circuit, self.spec.require.f_low,
+                                              self.spec.parts.capacitor_max,
+                                              d.source_resistance, d.load_resistance)
+        return capacitor_cost(c_big), lf_margin
+
     def r_matrix(self, values: dict[str, np.ndarray]) -> np.ndarray:
         return np.stack([np.asarray(values[ref], dtype=float) for ref in self.r_refs], axis=1)
 
@@ -159,16 +178,22 @@ class _Search:
         the spec's): secant steps on 1/|A|, nearly linear in RE1."""
         from .ac import linearize
 
-        a, b = self.family.GAIN_SPLIT
-        i4, i5 = self.r_refs.index(a), self.r_refs.index(b)
-        total = r[:, i4] + r[:, i5]
+        split = self.family.GAIN_SPLIT
         k = r.shape[0]
+        r0 = r.copy()
+        if split is not None:
+            i4, i5 = self.r_refs.index(split[0]), self.r_refs.index(split[1])
+            total = r[:, i4] + r[:, i5]
+            r0[:, i4] = FLOOR
+            r0[:, i5] = total - FLOOR
+            lo, hi = FLOOR, total - FLOOR
+        else:  # a single resistor that no DC current flows through (GAIN_KNOB)
+            i4, i5 = self.r_refs.index(self.family.GAIN_KNOB), None
+            r0[:, i4] = np.clip(re1, 1.0, self.spec.parts.resistor_max)
+            lo, hi = 1.0, np.full(k, self.spec.parts.resistor_max)
         nominal = Conditions(self.conditions.hfe25[:1], self.conditions.ambient[:1],
                              self.conditions.supply[:1])
         d = self.template
-        r0 = r.copy()
-        r0[:, i4] = FLOOR
-        r0[:, i5] = total - FLOOR
         dc = solve_dc(self.circuit, r0, np.repeat(nominal.supply, k),
                       np.repeat(nominal.hfe25, k, axis=0), np.repeat(nominal.ambient, k),
                       d.source_resistance, d.load_resistance,
@@ -179,13 +204,13 @@ class _Search:
         def inv_gain(x: np.ndarray) -> np.ndarray:
             rr = r0.copy()
             rr[:, i4] = x
-            rr[:, i5] = total - x
+            if i5 is not None:
+                rr[:, i5] = total - x
             sys = linearize(self.circuit, dc, rr, caps, d.source_resistance,
                             d.load_resistance, d.load_capacitance, d.source_capacitance)
             return 1.0 / np.maximum(np.abs(sys.gain(fm)[:, 0]), 1e-30)
 
         target = 1.0 / (self.spec.require.gain if target_gain is None else target_gain)
-        lo, hi = FLOOR, total - FLOOR
         x0 = np.clip(re1, lo, hi)
         x1 = np.clip(x0 * 1.2 + 1.0, lo, hi)
         y0, y1 = inv_gain(x0), inv_gain(x1)
@@ -206,8 +231,11 @@ def _centre_gain(search: _Search, r: np.ndarray, fig: Figures) -> tuple[np.ndarr
     middle of the spread, not the nominal value, on target. The split leaves the DC
     point where it was, so the other requirements hardly move.
     """
-    a, b = search.family.GAIN_SPLIT
-    i4, i5 = search.r_refs.index(a), search.r_refs.index(b)
+    split = search.family.GAIN_SPLIT
+    if split is not None:
+        i4, i5 = search.r_refs.index(split[0]), search.r_refs.index(split[1])
+    else:  # the single DC-free knob (GAIN_KNOB)
+        i4, i5 = search.r_refs.index(search.family.GAIN_KNOB), None
     g_db = fig.gain_db
     offset = 0.5 * (np.max(g_db, axis=1) + np.min(g_db, axis=1)) - g_db[:, 0]
     if np.all(np.abs(offset) < 0.02):
@@ -215,25 +243,43 @@ def _centre_gain(search: _Search, r: np.ndarray, fig: Figures) -> tuple[np.ndarr
     aim = search.spec.require.gain * 10.0 ** (-offset / 20.0)
     r2 = r.copy()
     r2[:, i4] = search.tune_gain(r, r[:, i4], aim)
-    r2[:, i5] = r[:, i4] + r[:, i5] - r2[:, i4]
+    if i5 is not None:
+        r2[:, i5] = r[:, i4] + r[:, i5] - r2[:, i4]
     return r2, search.evaluate(r2)
 
 
-def _rank(rows: list[Row], current: np.ndarray, prefer: str, skip=_LF_SKIP) -> np.ndarray:
-    """Candidate order, best first, per the objective of the module docstring."""
+def _rank(rows: list[Row], current: np.ndarray, prefer: str, skip=_LF_SKIP,
+          practical: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
+    """Candidate order, best first, per the objective of the module docstring.
+
+    `practical` = (margin cost of the largest capacitor, estimated f_low margin within the
+    part limits): the cost is taken off the margin and the estimated f_low shortfall joins
+    the smallest margin. The estimate is conservative, so it only orders: candidates
+    meeting every requirement judged exactly come first, those of them whose capacitors
+    also reach f_low within the limits (capacitor_max, film size where leakage matters)
+    before the others.
+    """
     ok = np.ones_like(current, dtype=bool)
     for row in rows:
         if row.name not in skip:
             ok &= row.ok
     score = smallest_margin(rows, skip)
     score = np.where(np.isfinite(score), score, -1e9)
+    best_ok = ok
+    if practical is not None:
+        cost, lf_margin = practical
+        best_ok = ok & (lf_margin >= 0)
+        if not np.any(best_ok):
+            best_ok = ok
+        score = np.minimum(score, lf_margin) - cost
     if prefer == "current":
-        primary = np.where(ok, -current / np.max(current), -1e9 + score)
+        primary = np.where(best_ok, -current / np.max(current),
+                           np.where(ok, -1e6 + score, -1e9 + score))
         secondary = score
     else:
-        best = np.max(np.where(ok, score, -np.inf)) if np.any(ok) else np.max(score)
-        tied = ok & (score >= best - TIE)
-        primary = np.where(tied, best, score)
+        best = np.max(np.where(best_ok, score, -np.inf)) if np.any(best_ok) else np.max(score)
+        tied = best_ok & (score >= best - TIE)
+        primary = np.where(tied, best, score) + np.where(ok, 1e6, 0.0)
         secondary = -current
     return np.lexsort((secondary, primary))[::-1]
 
@@ -350,12 +396,16 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
 def synthesize(
     spec: Spec, *, prefer: str = "margin", circuit: str | None = None
 ) -> SynthesisResult:
-    """Design a stage for `spec`: the simplest circuit family that meets every requirement.
+    """Design a stage for `spec`: the most practical circuit family that meets it.
 
-    Families are tried in the registry's order of simplicity (single stages from the
-    plain common emitter on, then cascades); the first that meets every requirement is
-    kept, so the common case costs one search. When none meets, the closest (fewest
-    failed requirements, then the best margin) is returned. `circuit` forces one family.
+    Families are searched in the registry's order (single stages, then two-stage
+    circuits); rules of thumb only move a family to the back of that order, and only
+    bounds of the model refuse one outright. Once a family meets every requirement, the
+    other families with as many transistors are searched too and the most practical
+    design is kept (`practicality`: margin, part sizes, part count). When none meets,
+    the closest (fewest failed requirements, then the best margin) is returned.
+    `circuit` forces one family. A family that leaves no candidate at all is named
+    with the requirement that empties it (NoDesignError, exit 1, when nothing is left).
     """
     if circuit is not None:
         if circuit not in FAMILIES:
@@ -367,8 +417,12 @@ def synthesize(
         return _with_choice(result, (report,), [note])
     reports: list[FamilyReport] = []
     results: list[tuple[FamilyReport, SynthesisResult]] = []
+    empty: list[str] = []
     impossible = _physics_conflicts(spec)  # limits no circuit on this supply escapes
-    for name, family in FAMILIES.items():
+    met_stages: int | None = None
+    for name, family in _search_order(spec):
+        if met_stages is not None and met_stages < family.STAGES:
+            break  # more transistors than a circuit that already meets
         if impossible and results:
             reports.append(FamilyReport(name, family.TITLE, family.STAGES, False, -math.inf,
                                         tuple(c.name for c in impossible),
@@ -380,18 +434,47 @@ def synthesize(
                                         tuple(c.name for c in blocked),
                                         "; ".join(c.best for c in blocked)))
             continue
-        res = _synthesize_family(spec, family, prefer)
+        try:
+            res = _synthesize_family(spec, family, prefer)
+        except NoDesignError as exc:
+            empty.append(exc.message)
+            reports.append(FamilyReport(name, family.TITLE, family.STAGES, False, -math.inf,
+                                        ("no candidate",), exc.message))
+            continue
         rep = _family_report(family, res)
         reports.append(rep)
         results.append((rep, res))
-        if rep.meets:
-            return _with_choice(res, tuple(reports), _choice_notes(rep, reports))
+        if rep.meets and met_stages is None:
+            met_stages = family.STAGES
+    meeting = [(rep, res) for rep, res in results if rep.meets]
+    if meeting:
+        if prefer == "current":  # the asked objective decides between families too
+            rep, res = min(meeting, key=lambda pair: (pair[1].analysis.supply_current,
+                                                      -practicality(pair[1])))
+        else:
+            rep, res = max(meeting, key=lambda pair: practicality(pair[1]))
+        return _with_choice(res, tuple(reports), _choice_notes(rep, reports, meeting))
     if not results:  # every family blocked outright: show the first family's best try
         family = next(iter(FAMILIES.values()))
-        res = _synthesize_family(spec, family, prefer)
+        try:
+            res = _synthesize_family(spec, family, prefer)
+        except NoDesignError as exc:
+            why = "; ".join(dict.fromkeys([*empty, exc.message]))
+            raise NoDesignError(f"no circuit family has a candidate: {why}") from None
         return _with_choice(res, tuple(reports), _choice_notes(None, reports))
     rep, res = min(results, key=lambda pair: (len(pair[0].failed), -pair[0].worst_margin))
     return _with_choice(res, tuple(reports), _choice_notes(None, reports))
+
+
+def _search_order(spec: Spec) -> list[tuple[str, object]]:
+    """The registry's order with the families a rule of thumb calls unlikely moved to the
+    back (stable, so the order of simplicity holds within each group)."""
+    def hint(family) -> bool:
+        check = getattr(family, "unlikely", None)
+        return bool(check(spec)) if check is not None else False
+
+    items = list(FAMILIES.items())
+    return sorted(items, key=lambda item: hint(item[1]))
 
 
 def _family_report(family, result: SynthesisResult) -> FamilyReport:
@@ -409,11 +492,14 @@ def _family_report(family, result: SynthesisResult) -> FamilyReport:
     )
 
 
-def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport]) -> list[str]:
-    """Which circuit was chosen, and what each other family reached (for the report)."""
+def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport],
+                  meeting: list | None = None) -> list[str]:
+    """Which circuit was chosen and how, and what each other family reached (for the report)."""
     lines = []
     for r in reports:
-        if r.note:
+        if r.note and r.failed == ("no candidate",):
+            lines.append(f"{r.title}: no candidate ({r.note}).")
+        elif r.note:
             lines.append(f"{r.title}: not tried ({r.note}).")
         elif r.meets:
             lines.append(f"{r.title}: meets every requirement; closest to its limit: "
@@ -423,15 +509,24 @@ def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport]) -> l
     if chosen is None:
         head = ("Circuit choice: no circuit family met every requirement; the closest "
                 "(fewest failed requirements, then the best margin) is shown.")
+        return [head, *lines]
+    failed = sorted({name for r in reports if not r.meets and not r.note for name in r.failed})
+    why = (f" Circuits that did not meet were held back by: {', '.join(failed)}."
+           if failed else "")
+    if meeting and len(meeting) > 1:
+        scored = ", ".join(f"{rep.name} {practicality(res):+.3f}" for rep, res in meeting)
+        head = (f"Circuit choice: {chosen.title}, the most practical of the {len(meeting)} "
+                f"circuits with {chosen.stages} transistor(s) that meet every requirement "
+                f"(practicality: smallest margin up to {MARGIN_CAP:.0%}, less "
+                f"{CAP_HALVING_WORTH:.0%} per halving the largest capacitor could lose "
+                f"below 1 µF, {R_DOUBLING_COST:.0%} per doubling of the largest resistor above "
+                f"100 kΩ and {PART_COST:.1%} per part; {scored}).{why}")
     else:
-        simpler = [r for r in reports if r is not chosen]
-        why = ""
-        if simpler:
-            drove = sorted({name for r in simpler for name in r.failed})
-            why = (f" Simpler circuits were tried first; the requirement(s) that drove the "
-                   f"choice: {', '.join(drove)}.")
-        head = (f"Circuit choice: {chosen.title}, the simplest circuit (in the order "
-                f"{', '.join(FAMILIES)}) that meets every requirement.{why}")
+        head = (f"Circuit choice: {chosen.title}, the only circuit with {chosen.stages} "
+                f"transistor(s) that meets every requirement (families searched in the order "
+                f"{', '.join(FAMILIES)}, rules of thumb moving unlikely ones to the back; "
+                f"circuits with more transistors are searched only when none with fewer "
+                f"meets).{why}")
     return [head, *lines]
 
 
@@ -474,20 +569,26 @@ def _synthesize_family(
     physics = [*_physics_conflicts(spec), *family.precheck(spec)]
 
     # 2-4: first cut, exact gain split, exact judgement at every corner
-    cut = family.first_cut(aim)
+    rmax = spec.parts.resistor_max
+    cut = _bounded_cut(family, aim)
+    if cut.count == 0:
+        raise NoDesignError(_empty_reason(spec, family))
     values = dict(cut.values)
     if family.GAIN_SPLIT is not None and cut.knob is not None:
         a, b = family.GAIN_SPLIT
         total = cut.values[a] + cut.values[b]
         values[a] = search.tune_gain(search.r_matrix(values), cut.knob)
         values[b] = total - values[a]
+    elif getattr(family, "GAIN_KNOB", None) and cut.knob is not None:
+        values[family.GAIN_KNOB] = search.tune_gain(search.r_matrix(values), cut.knob)
     r = search.r_matrix(values)
     r = r[search.screen(r, aim)]
     fig = search.evaluate(r)
-    if family.GAIN_SPLIT is not None and cut.knob is not None and fig.gain.shape[1] > 1:
+    tuned = family.GAIN_SPLIT is not None or getattr(family, "GAIN_KNOB", None)
+    if tuned and cut.knob is not None and fig.gain.shape[1] > 1:
         r, fig = _centre_gain(search, r, fig)
     rows = assess(fig, aim, search.circuit)
-    order = _rank(rows, fig.supply_current[:, 0], prefer)
+    order = _rank(rows, fig.supply_current[:, 0], prefer, practical=search.practical(fig))
     t_search = time.perf_counter()
 
     # 5: standard values for the best few continuous candidates
@@ -510,6 +611,7 @@ def _synthesize_family(
                 opts = [max([x for x in around if x <= v] or [around[0]]),
                         min([x for x in around if x >= v] or [around[-1]])]
                 opts = sorted(set(opts))
+            opts = _within_limit(opts, v, series, rmax)
             if ref in family.OPTIONAL and v < 5.0:
                 opts = [FLOOR, *opts]
             options.append(opts)
@@ -517,7 +619,8 @@ def _synthesize_family(
     rs = np.array(snapped)
     fig_s = search.evaluate(rs)
     rows_s = assess(fig_s, aim, search.circuit)
-    order_s = _rank(rows_s, fig_s.supply_current[:, 0], prefer)
+    order_s = _rank(rows_s, fig_s.supply_current[:, 0], prefer,
+                    practical=search.practical(fig_s))
     best = int(order_s[0])
     t_snap = time.perf_counter()
 
@@ -525,10 +628,19 @@ def _synthesize_family(
         chosen = {ref: float(rs[i, j]) for j, ref in enumerate(search.r_refs)}
         chosen.update({ref: float(v) for ref, v in zip(search.c_refs, search.c_big,
                                                          strict=True)})
-        sized = size_capacitors(finalize(family, spec, chosen), spec.require.f_low,
-                                env=search.env, series=spec.parts.capacitors,
-                                tolerance=spec.parts.capacitor_tolerance,
-                                z_out_max=spec.require.z_out)
+        base = finalize(family, spec, chosen)
+        limits: dict[str, float] = {}
+        for _ in range(3):  # electrolytics only where their leakage leaves the bias alone
+            sized = size_capacitors(base, spec.require.f_low, env=search.env,
+                                    series=spec.parts.capacitors,
+                                    tolerance=spec.parts.capacitor_tolerance,
+                                    z_out_max=spec.require.z_out,
+                                    capacitor_max=spec.parts.capacitor_max, limits=limits)
+            more = {k: v for k, v in leakage_limits(sized.design, spec).items()
+                    if k not in limits}
+            if not more:
+                break
+            limits.update(more)
         return sized.design, sized
 
     design, sizing = finish(best)
@@ -566,10 +678,14 @@ def _synthesize_family(
                                           f"{_fmt_check(c)} in the closest design written",
                                           _advice(c.name, _number(c.value), spec, c.unit)))
     polarity = "PNP" if spec.transistor.polarity == "pnp" else "NPN"
+    from .leakage import capacitor_kinds
+
+    kinds = capacitor_kinds(design, spec)
     notes = [
         f"Circuit: {family.TITLE} ({polarity}).",
         *family.describe(spec, design, analysis),
         *sizing.notes,
+        *_kind_notes(kinds, spec),
         *yield_notes,
         "Choice among candidates: every design meeting all requirements was ranked by its "
         "smallest normalized margin (value beyond the limit as a fraction of the limit), "
@@ -592,6 +708,9 @@ def _synthesize_family(
         "resistor_tolerance": spec.parts.resistor_tolerance,
         "capacitor_series": spec.parts.capacitors,
         "capacitor_tolerance": spec.parts.capacitor_tolerance,
+        "capacitor_kinds": {ref: k.to_dict() for ref, k in kinds.items()},
+        "resistor_max": spec.parts.resistor_max,
+        "capacitor_max": spec.parts.capacitor_max,
         "notes": notes,
     }
     from .results import predicted_block
@@ -615,6 +734,106 @@ def _synthesize_family(
     }
     return SynthesisResult(spec, design, analysis, verdict, tuple(conflicts), tuple(notes),
                            stats)
+
+
+def _kind_notes(kinds: dict, spec: Spec) -> list[str]:
+    """The part limits and, per capacitor, whether it may be an electrolytic (for the report)."""
+    from .leakage import BIAS_SHIFT_MAX
+
+    lines = [f"Part limits: resistors up to {_fmt(spec.parts.resistor_max, 'Ω')}, capacitors up "
+             f"to {_fmt(spec.parts.capacitor_max, 'F')}; the bias was chosen with the "
+             "capacitor sizes each candidate needs (the largest one costs a little margin per "
+             "doubling)."]
+    if kinds:
+        lines.append(
+            "Capacitor types (an electrolytic leaks about 0.01·C·V µA, at least 3 µA, common "
+            f"practice; it may sit only where that moves no collector current by more than "
+            f"{100 * BIAS_SHIFT_MAX:g} %): "
+            + "; ".join(f"{ref} {_fmt(k.value, 'F')}: {k.kind} ({k.reason})"
+                        for ref, k in kinds.items()) + ".")
+    return lines
+
+
+def _within_limit(opts: list[float], v: float, series: str, rmax: float) -> list[float]:
+    """The standard-value options of one resistor that respect resistor_max (the largest
+    standard value at or below the limit when every option lies above it)."""
+    kept = [x for x in opts if x <= rmax * (1 + 1e-9)]
+    if kept:
+        return kept
+    below = values_between(min(v, rmax) / 10.0, rmax, series)
+    return [max(below)] if below else [rmax]
+
+
+def _bounded_cut(family, spec: Spec):
+    """The family's first cut without the candidates that need a resistor above
+    resistor_max (or a non-physical value): the limit bounds every value chosen."""
+    from dataclasses import replace
+
+    cut = family.first_cut(spec)
+    if cut.count == 0:
+        return cut
+    keep = np.ones(cut.count, dtype=bool)
+    for ref, v in cut.values.items():
+        v = np.asarray(v, dtype=float)
+        part_ok = np.isfinite(v) & (v <= spec.parts.resistor_max * (1 + 1e-9))
+        if ref in family.OPTIONAL:
+            part_ok |= np.isfinite(v) & (v <= FLOOR)
+        else:
+            part_ok &= v > 0
+        keep &= part_ok
+    if np.all(keep):
+        return cut
+    return replace(cut, values={k: np.asarray(v)[keep] for k, v in cut.values.items()},
+                   knob=None if cut.knob is None else np.asarray(cut.knob)[keep],
+                   info={k: np.asarray(v)[keep] for k, v in cut.info.items()})
+
+
+_RELAXATIONS = ("resistor_max", "z_in", "supply_current", "swing", "z_out", "gain")
+
+
+def _relaxed(spec: Spec, names: tuple[str, ...]) -> Spec:
+    """`spec` with each named requirement (or part limit) made as easy as it gets."""
+    from dataclasses import replace
+
+    r, parts = spec.require, spec.parts
+    for name in names:
+        if name == "resistor_max":
+            parts = replace(parts, resistor_max=math.inf)
+        elif name == "gain":
+            r = replace(r, gain=1.0)
+        elif name == "swing":
+            r = replace(r, swing_vpp=min(r.swing_vpp, 0.1))
+        else:
+            r = replace(r, **{name: {"z_in": 0.0}.get(name)})
+    return replace(spec, require=r, parts=parts)
+
+
+def _empty_reason(spec: Spec, family) -> str:
+    """One line for a family whose first cut leaves no candidate: the requirement(s) (or
+    part limit) that empty it, found by relaxing each in turn, then pairs, and the family."""
+    r = spec.require
+    shown = {
+        "resistor_max": f"resistor_max = {_fmt(spec.parts.resistor_max, 'Ω')}",
+        "z_in": f"z_in ≥ {_fmt(r.z_in, 'Ω')}",
+        "supply_current": f"supply_current ≤ {_fmt(r.supply_current or 0.0, 'A')}",
+        "swing": f"swing ≥ {_fmt(r.swing_vpp, 'Vpp')}",
+        "z_out": f"z_out ≤ {_fmt(r.z_out or 0.0, 'Ω')}",
+        "gain": f"gain = {r.gain_db:.3g} dB",
+    }
+    present = [n for n in _RELAXATIONS if not (
+        (n == "supply_current" and r.supply_current is None)
+        or (n == "z_out" and r.z_out is None) or (n == "z_in" and r.z_in <= 0))]
+    head = f"circuit {family.NAME} ({family.TITLE}): no bias point of this circuit meets"
+    tail = f"on a {_fmt(spec.supply.voltage, 'V')} supply with this transistor"
+    for size in (1, 2):
+        for names in itertools.combinations(present, size):
+            try:
+                found = _bounded_cut(family, _relaxed(spec, names)).count > 0
+            except (ValueError, ZeroDivisionError, FloatingPointError):
+                continue
+            if found:
+                return f"{head} {' together with '.join(shown[n] for n in names)} {tail}"
+    return f"{head} these requirements together {tail}"
 
 
 def _low_frequency_droop(design: Design, spec: Spec, search: _Search) -> float:

@@ -96,7 +96,9 @@ def _run_caps(tmp: Path, design: dict[str, Any], f_low: str) -> tuple[dict[str, 
 @pytest.mark.parametrize(("name", "f_low", "target"), [
     ("ce_npn", "5 Hz", 5.0),  # lower the hydrophone stage's corner: larger capacitors
     ("ce_pnp", "200 Hz", 200.0),  # raise the tape-head stage's corner: smaller ones
-    ("ce_ce_cap", "2 Hz", 2.0),  # five capacitors in a two-stage amplifier
+    # five capacitors in a two-stage amplifier (2 Hz would need more than capacitor_max's
+    # default 470 µF: see test_caps_keeps_every_capacitor_within_capacitor_max)
+    ("ce_ce_cap", "3 Hz", 3.0),
 ])
 def test_caps_meets_the_new_corner_with_every_capacitor_low(
     tmp_path: Path, name: str, f_low: str, target: float
@@ -201,3 +203,20 @@ def test_passive_network_is_sized_or_refused_cleanly(tmp_path: Path) -> None:
     c1 = _values(json.loads(dst.read_text(encoding="utf-8")), "capacitor")["C1"]
     r = 1e3 + _par(10e3, 10e3, 1e6)
     assert 1.0 / (2 * math.pi * r * c1) <= 50.0
+
+
+def test_caps_keeps_every_capacitor_within_capacitor_max(tmp_path: Path) -> None:
+    """A corner the two-stage amplifier cannot reach with capacitors of at most 470 µF (the
+    spec format's default capacitor_max): `caps` keeps every capacitor within the limit
+    and says the corner is missed (exit 1) rather than writing a 1 mF part."""
+    design = ds.DESIGNS["ce_ce_cap"]
+    src, dst = tmp_path / "design.json", tmp_path / "resized.json"
+    src.write_text(json.dumps(design, indent=1), encoding="utf-8")
+    result = subprocess.run([sys.executable, "-m", "stagesynth", "caps", str(src), "--f-low",
+                             "1 Hz", "--out", str(dst)], cwd=ROOT, capture_output=True,
+                            text=True)
+    assert "Traceback" not in result.stderr, result.stderr
+    assert result.returncode == 1
+    new = json.loads(dst.read_text(encoding="utf-8"))
+    assert max(_values(new, "capacitor").values()) <= 470e-6 * (1 + 1e-9)
+    assert _reference_f_low(new, (1.0, new["band"]["f_high"])) > 1.0  # honestly missed

@@ -33,7 +33,7 @@ from independent import refmodel as rm
 from stagesynth.analysis import analyze
 from stagesynth.device import PRESETS
 from stagesynth.spec import Spec, load_spec, spec_from_mapping
-from stagesynth.synth import TIE, SynthesisResult, synthesize
+from stagesynth.synth import MARGIN_CAP, TIE, SynthesisResult, synthesize
 from stagesynth.topologies import common_emitter as ce
 from stagesynth.verdict import Verdict, judge
 
@@ -141,7 +141,10 @@ def feasible_specs(draw: st.DrawFn) -> dict[str, Any]:
         preset = draw(st.sampled_from(["generic-npn", "generic-pnp", "lownoise-npn"]))
         vcc = draw(st.sampled_from([5.0, 6.0, 9.0, 12.0, 15.0, 18.0, 24.0]))
         tol = draw(st.sampled_from([0.0, 0.05, 0.1]))
-        f_low = _sig(10 ** draw(st.floats(math.log10(0.5), 2.0)))
+        # from 5 Hz: below it a bypassed emitter needs more than capacitor_max's default
+        # 470 µF (a 1 mA stage's bypass sees about re + RE1 ~ 50 Ω: 1/(2π·470 µF·50 Ω) ~ 7 Hz)
+        # or an electrolytic whose leakage (common practice) moves the bias
+        f_low = _sig(10 ** draw(st.floats(math.log10(5.0), 2.0)))
         f_high = _sig(10 ** draw(st.floats(math.log10(5e3), math.log10(2e5))))
         rl = draw(st.sampled_from([4.7e3, 10e3, 22e3, 47e3, 100e3]))
         cl = draw(st.sampled_from([0.0, 100e-12, 470e-12]))
@@ -349,7 +352,7 @@ def test_ours_is_at_least_as_good_as_the_textbook_hand_design(name: str) -> None
     tool picks the least total capacitance that holds f_low with every capacitor at minus
     its tolerance, so ours must hold f_low in that worst case (checked by the independent
     model). The other margins: ours >= hand - TIE (the tool's documented tie band, in
-    which it prefers the lower supply current).
+    which it prefers the lower supply current), both capped at MARGIN_CAP.
     """
     spec = _spec(name)
     hand = ce.build(spec, hand_design(spec))
@@ -363,8 +366,10 @@ def test_ours_is_at_least_as_good_as_the_textbook_hand_design(name: str) -> None
             ce_only = _ours(name, circuit=ce.NAME)
             assert ce_only.meets_spec, (name, [(c.name, c.value)
                                                for c in ce_only.verdict.failed])
-    hand_margin = _margin_without_f_low(hand_verdict)
-    our_margin = _margin_without_f_low(ours.verdict)
+    # margins beyond MARGIN_CAP buy nothing in the documented objective (the family
+    # choice then weighs part sizes and count), so both are compared capped there
+    hand_margin = min(_margin_without_f_low(hand_verdict), MARGIN_CAP)
+    our_margin = min(_margin_without_f_low(ours.verdict), MARGIN_CAP)
     assert our_margin >= hand_margin - TIE, (name, our_margin, hand_margin)
     if ours.meets_spec:
         # every capacitor at -tolerance: still f_low <= the limit (reference model)

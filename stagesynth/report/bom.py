@@ -110,7 +110,11 @@ def capacitor_stress(design: Design, analysis: Analysis, part: Part) -> dict:
     same_sign = bool(volts) and (all(v > 0 for v in volts) or all(v < 0 for v in volts))
     value = float(part.value)
     polarized = value >= ELECTROLYTIC_FROM and same_sign and worst >= POLAR_MIN_VOLTS
-    if polarized:
+    leak = leakage_kind(design, part)
+    if leak is not None and not leak.electrolytic_ok and value >= ELECTROLYTIC_FROM:
+        polarized = False  # its leakage would move the bias: no electrolytic here
+        kind = "film or ceramic required"
+    elif polarized:
         kind = "electrolytic"
     elif value >= ELECTROLYTIC_FROM:
         kind = "bipolar electrolytic or film"
@@ -122,7 +126,35 @@ def capacitor_stress(design: Design, analysis: Analysis, part: Part) -> dict:
         "type": kind,
         "polarized": polarized,
         "positive": (a if volts[0] > 0 else b) if polarized else None,
+        **_leakage_fields(leak),
     }
+
+
+_LEAK_CACHE: list = []  # (design, kinds) of the last design asked: one engine call per design
+
+
+def leakage_kind(design: Design, part: Part):
+    """The engine's leakage verdict for one capacitor (leakage.py), or None if unavailable."""
+    from ..errors import ConvergenceError
+    from ..leakage import capacitor_kinds
+
+    if not _LEAK_CACHE or _LEAK_CACHE[0][0] is not design:
+        try:
+            kinds = capacitor_kinds(design)
+        except (ValueError, ArithmeticError, ConvergenceError):
+            kinds = {}  # a parts list still lists the parts without the leakage verdict
+        _LEAK_CACHE[:] = [(design, kinds)]
+    return _LEAK_CACHE[0][1].get(part.ref)
+
+
+def _leakage_fields(leak) -> dict:
+    """Leakage data for design.json: may this capacitor be an electrolytic, and why."""
+    if leak is None:
+        return {}
+    return {"electrolytic_ok": leak.electrolytic_ok,
+            "electrolytic_leakage_a": leak.leakage,
+            "leakage_bias_shift": leak.bias_shift,
+            "leakage_note": leak.reason}
 
 
 def _capacitor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, str]:
@@ -136,6 +168,12 @@ def _capacitor_row(design: Design, analysis: Analysis, part: Part) -> dict[str, 
         kind = f"electrolytic (aluminium, polarized), + to {plus}"
         note = (f"positive end on node {plus} (higher DC voltage at every corner); "
                 f"rating ≥ {DERATING:g}× the highest DC voltage (common practice)")
+        if st.get("leakage_note"):
+            note += f"; {st['leakage_note']}"
+    elif st["type"] == "film or ceramic required":
+        kind = "film or ceramic required (no electrolytic)"
+        note = (f"{st.get('leakage_note', '')}; rating ≥ {DERATING:g}× the highest DC voltage "
+                "(common practice)")
     elif st["type"] == "bipolar electrolytic or film":
         kind = "bipolar (non-polar) electrolytic or film"
         note = ("DC voltage across it is tiny or changes sign: a polarized part would be "

@@ -2,8 +2,9 @@
 
 The registry's order is the order of simplicity the selector follows: the plain
 common emitter first, then the other single stages from the most to the least
-general-purpose, then the two-stage cascades (the six-resistor ones before the
-ten-resistor CE->CE). See base.py for what a family gives.
+general-purpose, then the two-stage circuits: the feedback pair first (its gain is a
+resistor ratio, held over hFE and temperature by the loop), then the cascades (the
+six-resistor ones before the ten-resistor CE->CE). See base.py for what a family gives.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ from . import (
     ef_bootstrap,
     ef_ce,
     emitter_follower,
+    fb_pair,
 )
 
 FAMILIES = {
@@ -27,6 +29,7 @@ FAMILIES = {
         emitter_follower,
         ef_bootstrap,
         common_base,
+        fb_pair,
         ce_ef,
         ef_ce,
         ce_ce,

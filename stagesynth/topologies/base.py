@@ -9,11 +9,17 @@ A family is a module with these attributes (see common_emitter.py for one):
     GAIN_SPLIT        (a, b) or None: moving resistance from b to a (sum fixed)
                       changes the gain but not the DC point; the synthesizer
                       tunes it so the exact gain is on target
+    GAIN_KNOB         optional, instead of GAIN_SPLIT: one resistor no DC current
+                      flows through (in series with a capacitor); the synthesizer
+                      tunes it alone so the exact gain is on target
+    unlikely(spec)    optional -> list[Conflict]: rules of thumb that only move the
+                      family to the back of the search (never refuse it)
     OPTIONAL          resistors that may be left out: a value at FLOOR means
                       "no part", and the finished netlist shorts it
     build(spec, values) -> Design
     first_cut(spec) -> FirstCut
     precheck(spec) -> list[Conflict]     requirements the family can never meet
+                                         (bounds provable from the device model only)
     describe(spec, design, analysis) -> list[str]   rationale for the report
 """
 

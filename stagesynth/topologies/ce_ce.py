@@ -212,8 +212,12 @@ def precheck(spec: Spec) -> list[Conflict]:
         out.append(Conflict("inverting", "yes",
                             "two inverting stages in cascade give a non-inverted output",
                             'set inverting = "any" or "no", or use an inverting circuit'))
-    out += gbw_conflict(spec, 2)
     return out
+
+
+def unlikely(spec: Spec) -> list[Conflict]:
+    """Rules of thumb that make this family a poor first try (they order the search only)."""
+    return gbw_conflict(spec, 2)
 
 
 def describe(spec: Spec, design: Design, analysis) -> list[str]:

@@ -118,9 +118,9 @@ def nonempty(keep: np.ndarray, values: Mapping[str, np.ndarray]) -> np.ndarray:
 
 
 def gbw_conflict(spec: Spec, stages: int) -> list[Conflict]:
-    """A transistor's gain x bandwidth stays below fT (hybrid-pi, from memory). With `stages`
-    gain stages whose gains multiply to the target, one of them carries at least
-    gain**(1/stages) and needs that times f_high: a necessary condition, never too strict."""
+    """Rule of thumb (common practice): a stage's gain x bandwidth stays below fT. With
+    `stages` gain stages one carries at least gain**(1/stages). Not a bound of the model
+    (a low source resistance exceeds it), so it only orders the search, never refuses."""
     r = spec.require
     need = r.gain ** (1.0 / stages) * r.f_high
     if need <= spec.transistor.ft:
@@ -274,8 +274,12 @@ def precheck(spec: Spec) -> list[Conflict]:
         out.append(Conflict("inverting", "no",
                             "the common-emitter stage inverts and the follower does not",
                             'set inverting = "any" or "yes", or use a non-inverting circuit'))
-    out += gbw_conflict(spec, 1)
     return out
+
+
+def unlikely(spec: Spec) -> list[Conflict]:
+    """Rules of thumb that make this family a poor first try (they order the search only)."""
+    return gbw_conflict(spec, 1)
 
 
 def describe(spec: Spec, design: Design, analysis) -> list[str]:

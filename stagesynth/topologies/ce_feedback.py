@@ -151,6 +151,11 @@ def precheck(spec: Spec) -> list[Conflict]:
     return common_emitter.precheck(spec)
 
 
+def unlikely(spec: Spec) -> list[Conflict]:
+    """Rules of thumb that make this family a poor first try (they order the search only)."""
+    return common_emitter.unlikely(spec)
+
+
 def describe(spec: Spec, design: Design, analysis) -> list[str]:
     """Plain-language reasons for this bias point, feedback and split (for the report)."""
     values = design.values()

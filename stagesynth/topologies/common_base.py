@@ -143,14 +143,6 @@ def precheck(spec: Spec) -> list[Conflict]:
                             "a common-base stage never inverts: collector and emitter move "
                             "together", 'set inverting = "any" or "no", or use a '
                             "common-emitter stage"))
-    bound = input_resistance_bound(spec)
-    if r.z_in > bound:
-        out.append(Conflict(
-            "z_in", f"≥ {eng(r.z_in, 'Ω', 4)}",
-            f"a common-base input looks into the emitter, about RE ∥ re with re = VT/IC; even "
-            f"at the smallest bias this family uses ({IC_MIN * 1e6:.0f} µA) that stays below "
-            f"{eng(bound, 'Ω', 4)}",
-            "use a common-emitter stage or a follower for a high input impedance"))
     rs = spec.source.resistance
     if rs > 0:
         ceiling = spec.load.resistance / rs  # alpha < 1, Rac < RL, re > 0
@@ -162,6 +154,20 @@ def precheck(spec: Spec) -> list[Conflict]:
                 f"stays below RL/Rs = {num(20 * np.log10(ceiling), 3)} dB",
                 "lower the gain, or use a common-emitter stage"))
     return out
+
+
+def unlikely(spec: Spec) -> list[Conflict]:
+    """Rules of thumb that make this family a poor first try (they order the search only):
+    the input impedance it reaches at the smallest bias its first cut tries."""
+    bound = input_resistance_bound(spec)
+    if spec.require.z_in <= bound:
+        return []
+    return [Conflict(
+        "z_in", f"≥ {eng(spec.require.z_in, 'Ω', 4)}",
+        f"a common-base input looks into the emitter, about RE ∥ re with re = VT/IC; at the "
+        f"smallest bias this family's first cut uses ({IC_MIN * 1e6:.0f} µA) that stays below "
+        f"{eng(bound, 'Ω', 4)}",
+        "use a common-emitter stage or a follower for a high input impedance")]
 
 
 def describe(spec: Spec, design: Design, analysis) -> list[str]:

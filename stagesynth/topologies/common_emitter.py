@@ -157,15 +157,14 @@ def precheck(spec: Spec) -> list[Conflict]:
     if r.inverting == "no":
         out.append(Conflict("inverting", "no", "a common-emitter stage always inverts",
                             'set inverting = "any" or "yes", or use a non-inverting circuit'))
-    gbw = r.gain * r.f_high
-    if gbw > spec.transistor.ft:
-        out.append(Conflict(
-            "f_high", f"{eng(r.f_high, 'Hz', 4)} at {eng(r.gain, 'V/V', 3)}",
-            f"one transistor's gain × bandwidth stays below fT = "
-            f"{eng(spec.transistor.ft, 'Hz', 4)}; "
-            f"this asks {eng(gbw, 'Hz', 4)}",
-            "lower the gain or f_high, use two stages, or a transistor with a higher fT"))
     return out
+
+
+def unlikely(spec: Spec) -> list[Conflict]:
+    """Rules of thumb that make this family a poor first try (they order the search only)."""
+    from .ce_ef import gbw_conflict
+
+    return gbw_conflict(spec, 1)
 
 
 def describe(spec: Spec, design: Design, analysis) -> list[str]:

@@ -163,8 +163,12 @@ def precheck(spec: Spec) -> list[Conflict]:
         out.append(Conflict("inverting", "no",
                             "the follower does not invert and the common-emitter stage does",
                             'set inverting = "any" or "yes", or use a non-inverting circuit'))
-    out += gbw_conflict(spec, 1)
     return out
+
+
+def unlikely(spec: Spec) -> list[Conflict]:
+    """Rules of thumb that make this family a poor first try (they order the search only)."""
+    return gbw_conflict(spec, 1)
 
 
 def describe(spec: Spec, design: Design, analysis) -> list[str]:
