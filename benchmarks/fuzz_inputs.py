@@ -201,6 +201,7 @@ def main() -> int:
         if result.exception is not None and not isinstance(result.exception, SystemExit):
             tb = "".join(traceback.format_exception(result.exception))[-600:]
             crashes.append(f"{label} #{i} {argv}: {type(result.exception).__name__}\n{tb}")
+            print("CRASH " + crashes[-1], flush=True)
         if dt > 60:
             slow.append(f"{label} #{i}: {dt:.0f} s")
         if label == "design" and result.exit_code == 0:

@@ -312,7 +312,7 @@ def device_from_design_dict(data: Mapping[str, Any], name: str, file: str) -> De
     if not isinstance(data, Mapping):
         raise r.fail(path, "is not an object", "an object of device fields")
     for key in _DEVICE_REQUIRED:
-        if key not in data:
+        if data.get(key) is None:  # absent or null
             raise r.fail(f"{path}.{key}", "is missing", "see the design-file format")
     polarity = data["polarity"]
     if polarity not in ("npn", "pnp"):

@@ -268,3 +268,11 @@ def test_lock_is_exclusive_between_threads_of_work(tmp_path) -> None:
     with OutputDir(out) as again:  # free once the first has finished
         again.write_text("x.txt", "ok")
     assert (out / "x.txt").read_text() == "ok"
+
+
+def test_required_device_field_set_to_null_is_named(made, tmp_path) -> None:
+    """Found by benchmarks/fuzz_inputs.py: "c_cb": null was a TypeError, not exit 2."""
+    def null(d):
+        next(iter(d["devices"].values()))["c_cb"] = None
+    _bad(RUNNER.invoke(app, ["analyze", str(_edited(made, tmp_path, null))]), ".c_cb",
+         "missing")
