@@ -35,6 +35,7 @@ from .errors import StageError
 from .eseries import nearest, neighbours
 from .evaluate import Conditions, Figures, evaluate
 from .netlist import Design
+from .noise import plan_for
 from .spec import Spec
 from .topologies import FAMILIES
 from .topologies.base import FLOOR, Conflict, finalize
@@ -125,7 +126,7 @@ class _Search:
                         load_capacitance=d.load_capacitance,
                         source_capacitance=d.source_capacitance,
                         band=(self.spec.require.f_low, self.spec.require.f_high),
-                        corners="high")
+                        corners="high", noise=plan_for(self.spec.require))
 
     def screen(self, r: np.ndarray, spec: Spec) -> np.ndarray:
         """Indices of the candidates worth judging at every corner.
@@ -145,7 +146,8 @@ class _Search:
                        load_resistance=d.load_resistance,
                        load_capacitance=d.load_capacitance,
                         source_capacitance=d.source_capacitance,
-                       band=(spec.require.f_low, spec.require.f_high), corners="high")
+                       band=(spec.require.f_low, spec.require.f_high), corners="high",
+                       noise=plan_for(spec.require))
         self.evaluated += k
         rows = assess(fig, spec, self.circuit, first_corner=0)
         score = smallest_margin(rows, _LF_SKIP)
