@@ -262,3 +262,32 @@ def noise_figures(
         rms=np.sqrt(out_ms) / a_mid,
         output_rms=np.sqrt(out_ms),
     )
+
+
+@dataclass(frozen=True)
+class Contribution:
+    """One part's share of the stage noise at one frequency, referred to the input."""
+
+    label: str  # a resistor's reference, or "Q1 base shot" / "Q1 collector shot" / "Q1 rx"
+    owner: str
+    density2: float  # V²/Hz at the input
+    share: float  # of S_amp (the source's own term excluded)
+
+
+def nominal_spectrum(analysis, freqs: np.ndarray) -> NoiseSpectrum:
+    """The nominal design's spectrum at `freqs` (F,), from an analysis (analysis.py)."""
+    sources = analysis.figures.noise_sources.subset(np.array([0]))
+    return spectrum(analysis.system, sources, np.asarray(freqs, dtype=float)[None, :])
+
+
+def contributions(analysis, f: float) -> list[Contribution]:
+    """Every generator's input-referred share at f, largest first (nominal condition)."""
+    fig = analysis.figures
+    if fig is None or fig.noise_sources is None:
+        return []
+    sp = nominal_spectrum(analysis, np.array([f]))
+    ref = sp.input_referred()[0, 0, :-1]
+    total = float(np.sum(ref))
+    rows = [Contribution(lab, own, float(v), float(v) / total if total > 0 else 0.0)
+            for lab, own, v in zip(sp.labels[:-1], sp.owners[:-1], ref, strict=True)]
+    return sorted(rows, key=lambda c: -c.density2)

@@ -256,6 +256,26 @@ def _physics_conflicts(spec: Spec) -> list[Conflict]:
             f"tolerance) and VCE(sat) = {eng(dev.vce_sat, 'V', 3)}",
             "ask for less swing, or raise the supply voltage",
         ))
+    out.extend(_noise_floor_conflicts(spec))
+    return out
+
+
+def _noise_floor_conflicts(spec: Spec) -> list[Conflict]:
+    """Noise requirements below the input transistor's physical floor (lownoise.py)."""
+    if not spec.require.wants_noise:
+        return []
+    from .lownoise import advice, unreachable
+
+    out = []
+    for fl, limit in unreachable(spec):
+        unit = {"noise": "V/√Hz", "noise_figure": "dB", "noise_rms": "V"}[fl.name]
+        out.append(Conflict(
+            fl.name, f"<= {_fmt(limit, unit)}",
+            f"no bias current or circuit gets below the floor of {_fmt(fl.value, unit)} "
+            f"({fl.condition}), set by {fl.cause}",
+            f"relax {fl.name} to {_fmt(1.1 * fl.value if unit != 'dB' else fl.value + 0.3, unit)}"
+            f" or more, or: {advice(spec, fl.name)}",
+        ))
     return out
 
 
@@ -346,6 +366,11 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
                 "resistor equal to the source resistance")
     if name.endswith(("ic_max", "vce_max", "p_max")):
         return "choose a transistor with higher ratings, or a lower supply"
+    if name in ("noise", "noise_figure", "noise_rms"):
+        from .lownoise import advice
+
+        relaxed = best + 0.2 if unit == "dB" else 1.05 * best
+        return f"relax {name} to {_fmt(relaxed, unit)}, or: {advice(spec, name)}"
     return "relax this requirement"
 
 
@@ -571,6 +596,7 @@ def _synthesize_family(
     notes = [
         f"Circuit: {family.TITLE} ({polarity}).",
         *family.describe(spec, design, analysis),
+        *_noise_notes(spec, analysis),
         *sizing.notes,
         *yield_notes,
         "Choice among candidates: every design meeting all requirements was ranked by its "
@@ -617,6 +643,15 @@ def _synthesize_family(
     }
     return SynthesisResult(spec, design, analysis, verdict, tuple(conflicts), tuple(notes),
                            stats)
+
+
+def _noise_notes(spec: Spec, analysis: Analysis) -> list[str]:
+    """The noise rationale (dominant term, bias current against the optimum) when asked."""
+    if not spec.require.wants_noise:
+        return []
+    from .lownoise import rationale
+
+    return rationale(spec, analysis)
 
 
 def _low_frequency_droop(design: Design, spec: Spec, search: _Search) -> float:
