@@ -291,3 +291,58 @@ def contributions(analysis, f: float) -> list[Contribution]:
     rows = [Contribution(lab, own, float(v), float(v) / total if total > 0 else 0.0)
             for lab, own, v in zip(sp.labels[:-1], sp.owners[:-1], ref, strict=True)]
     return sorted(rows, key=lambda c: -c.density2)
+
+
+@dataclass(frozen=True)
+class NoiseSummary:
+    """What the report shows about noise, all from the engine (nominal condition)."""
+
+    spot: float  # Hz, noise_at or midband
+    density: float  # V/√Hz input-referred at spot
+    figure_db: float | None  # dB at spot (None without a source resistance)
+    source_density: float  # V/√Hz: the source resistance's own thermal noise at T0
+    band: tuple[float, float]  # Hz, the integration band
+    rms: float  # V input-referred over the band
+    output_rms: float  # V at the load over the band (the stage's own noise)
+    swing_vpp: float  # the rated swing the SNR is taken at
+    snr_db: float  # 20·log10(swing rms / output_rms)
+    contributions: tuple[Contribution, ...]  # at spot, largest first
+
+
+def noise_summary(analysis, swing_vpp: float | None = None) -> NoiseSummary | None:
+    """The nominal noise figures of an analysis, with the SNR at `swing_vpp` (default:
+    the analysis's own smallest swing over the corners)."""
+    fig = analysis.figures
+    if fig is None or fig.noise is None or fig.noise_band is None:
+        return None
+    spot = analysis.environment.noise_at or analysis.midband
+    sp = nominal_spectrum(analysis, np.array([spot]))
+    swing = float(swing_vpp if swing_vpp else analysis.swing_vpp)
+    out_rms = float(fig.noise_output_rms[0, 0])
+    signal_rms = swing / (2.0 * math.sqrt(2.0))
+    snr = 20.0 * math.log10(signal_rms / out_rms) if swing > 0 and out_rms > 0 else math.nan
+    nf = float(fig.noise_figure[0, 0])
+    return NoiseSummary(
+        spot=float(spot),
+        density=float(fig.noise[0, 0]),
+        figure_db=nf if math.isfinite(nf) else None,
+        source_density=float(np.sqrt(sp.input_referred()[0, 0, -1])),
+        band=(float(fig.noise_band[0][0]), float(fig.noise_band[1][0])),
+        rms=float(fig.noise_rms[0, 0]),
+        output_rms=out_rms,
+        swing_vpp=swing,
+        snr_db=snr,
+        contributions=tuple(contributions(analysis, spot)),
+    )
+
+
+def noise_curves(analysis, freqs: np.ndarray) -> dict[str, np.ndarray]:
+    """Sweep for the report's plot: input-referred density, the source's own thermal
+    density and the spot noise figure (nan without a source resistance) at `freqs`."""
+    sp = nominal_spectrum(analysis, freqs)
+    return {
+        "f": np.asarray(freqs, dtype=float),
+        "density": sp.density[0],
+        "source": np.sqrt(sp.input_referred()[0, :, -1]),
+        "figure_db": sp.figure_db[0],
+    }
