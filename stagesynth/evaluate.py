@@ -243,7 +243,7 @@ def _noise(circuit, system, dc, r_rep, ambient, source_resistance, plan: NoisePl
     spot = np.repeat(midband if plan.at is None else np.full(k, plan.at), m)
     fm = np.repeat(midband, m)
     rep_band = (np.repeat(lo, m), np.repeat(hi, m)) if plan.rms else (fm, fm * 1.0001)
-    nf = noise_figures(system, sources, spot, rep_band, fm)
+    nf = noise_figures(system, sources, spot, rep_band, fm, plan.per_decade)
     rms = nf.rms if plan.rms else np.full(k * m, np.nan)
     out_rms = nf.output_rms if plan.rms else np.full(k * m, np.nan)
     return {

@@ -33,13 +33,15 @@ class NoisePlan:
 
     at: float | None = None
     rms: bool = True
+    per_decade: int = POINTS_PER_DECADE  # band grid; a search may screen on a coarser one
 
 
-def plan_for(require) -> NoisePlan | None:
+def plan_for(require, per_decade: int = POINTS_PER_DECADE) -> NoisePlan | None:
     """The plan a spec's requirements call for (None when it asks no noise figure)."""
     if not require.wants_noise:
         return None
-    return NoisePlan(at=require.noise_at, rms=require.noise_rms is not None)
+    return NoisePlan(at=require.noise_at, rms=require.noise_rms is not None,
+                     per_decade=per_decade)
 
 
 @dataclass(frozen=True)
@@ -245,11 +247,12 @@ def noise_figures(
     spot: np.ndarray,
     band: tuple[np.ndarray, np.ndarray],
     midband: np.ndarray,
+    per_decade: int = POINTS_PER_DECADE,
 ) -> NoiseFigures:
     """Density and noise figure at `spot` (B,), rms over `band` ((B,), (B,)) referred by
     the gain at `midband` (B,): one batched adjoint solve for all the frequencies."""
     B = system.batch
-    grid = band_grid(band[0], band[1])
+    grid = band_grid(band[0], band[1], per_decade)
     freqs = np.concatenate([np.reshape(spot, (B, 1)), np.reshape(midband, (B, 1)), grid],
                            axis=1)
     sp = spectrum(system, sources, freqs)

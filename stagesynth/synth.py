@@ -57,6 +57,7 @@ YIELD_CANDIDATES = 6  # standard-value candidates judged by Monte Carlo when a y
 YIELD_SCREEN_UNITS = 1500  # units per candidate while choosing (common random numbers)
 YIELD_FINAL_UNITS = 10_000  # units for the figure written to the design file
 _LF_SKIP = ("f_low",)  # capacitors are sized after the resistors
+SEARCH_NOISE_GRID = 8  # points per decade of the band rms while searching (final: 16)
 
 
 @dataclass(frozen=True)
@@ -126,7 +127,7 @@ class _Search:
                         load_capacitance=d.load_capacitance,
                         source_capacitance=d.source_capacitance,
                         band=(self.spec.require.f_low, self.spec.require.f_high),
-                        corners="high", noise=plan_for(self.spec.require))
+                        corners="high", noise=plan_for(self.spec.require, SEARCH_NOISE_GRID))
 
     def screen(self, r: np.ndarray, spec: Spec) -> np.ndarray:
         """Indices of the candidates worth judging at every corner.
@@ -147,7 +148,7 @@ class _Search:
                        load_capacitance=d.load_capacitance,
                         source_capacitance=d.source_capacitance,
                        band=(spec.require.f_low, spec.require.f_high), corners="high",
-                       noise=plan_for(spec.require))
+                       noise=plan_for(spec.require, SEARCH_NOISE_GRID))
         self.evaluated += k
         rows = assess(fig, spec, self.circuit, first_corner=0)
         score = smallest_margin(rows, _LF_SKIP)

@@ -127,6 +127,8 @@ def first_cut(spec: Spec, *, ic_points: int = 14) -> FirstCut:
     dev = spec.transistor
     vcc = spec.supply.voltage
     lo, hi = ic_range(spec)
+    if spec.require.wants_noise:  # five more points around the noise optimum follow
+        ic_points = max(ic_points - 5, 8)
     ic = noise_grid(spec, np.geomspace(lo, hi, ic_points), lo, hi)
     ve_frac = np.array([0.05, 0.09, 0.14, 0.2])
     vce_frac = np.array([0.2, 0.3, 0.4, 0.5, 0.6, 0.7])
@@ -134,7 +136,7 @@ def first_cut(spec: Spec, *, ic_points: int = 14) -> FirstCut:
         vce_frac = np.array([0.2, 0.35, 0.5, 0.65, 0.8, 0.9])
     # a divider's thermal noise current flows in the source resistance: when noise is
     # asked, a softer (larger) divider is tried too
-    stiff = np.array([1.5, 3.0, 6.0, 12.0, 24.0] if spec.require.wants_noise
+    stiff = np.array([1.5, 3.0, 6.0, 12.0] if spec.require.wants_noise
                      else [3.0, 6.0, 12.0, 24.0])
     IC, VEf, VCEf, K = (a.ravel() for a in np.meshgrid(ic, ve_frac, vce_frac, stiff,
                                                            indexing="ij"))
