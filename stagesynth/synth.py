@@ -557,6 +557,8 @@ def _synthesize_family(
                                 env=search.env, series=spec.parts.capacitors,
                                 tolerance=spec.parts.capacitor_tolerance,
                                 z_out_max=spec.require.z_out)
+        if spec.require.wants_noise:
+            return _quiet_input_coupling(sized.design, spec), sized
         return sized.design, sized
 
     design, sizing = finish(best)
@@ -644,6 +646,28 @@ def _synthesize_family(
     }
     return SynthesisResult(spec, design, analysis, verdict, tuple(conflicts), tuple(notes),
                            stats)
+
+
+QUIET_COUPLING = 10.0  # input coupling reactance at f_low at most Rs / this, when noise is asked
+CAP_LIMIT = 470e-6  # F, the largest capacitor the contract's parts section defaults to
+
+
+def _quiet_input_coupling(design: Design, spec: Spec) -> Design:
+    """Raise the input coupling capacitor so that its reactance at f_low stays well below
+    the source resistance: near f_low a small one leaves the base current's noise to
+    flow in the large bias resistors instead of the source (the gain falls, that noise
+    does not), which dominates a band-integrated noise. The low corner only moves down."""
+    rs = max(spec.source.resistance, 100.0)
+    target = QUIET_COUPLING / (2.0 * math.pi * spec.require.f_low * rs)
+    series = spec.parts.capacitors
+    values = {}
+    for p in design.parts:
+        if p.kind != "capacitor" or design.input not in p.nodes or p.value >= target:
+            continue
+        opts = sorted({nearest(target, series), *neighbours(target, series, 1)})
+        up = [x for x in opts if x >= target]
+        values[p.ref] = min(min(up) if up else max(opts), max(CAP_LIMIT, p.value))
+    return design.with_values(values) if values else design
 
 
 def _noise_notes(spec: Spec, analysis: Analysis) -> list[str]:
