@@ -648,7 +648,7 @@ def _synthesize_family(
                            stats)
 
 
-QUIET_COUPLING = 10.0  # input coupling reactance at f_low at most Rs / this, when noise is asked
+QUIET_COUPLING = 3.0  # input coupling reactance at f_low at most Rs / this, when noise is asked
 CAP_LIMIT = 470e-6  # F, the largest capacitor the contract's parts section defaults to
 
 
