@@ -202,6 +202,7 @@ def _range_and_match_rows(fig: Figures, spec: Spec, first_corner: int) -> list[R
         rl = worst_return_loss(fig.system, spec.source.resistance, (r.f_low, r.f_high))
         rows.append(_worst_row(_at_least, "return_loss", rl.reshape(k, m)[:, judged],
                                r.return_loss, "dB", judged))
+    return rows
 
 
 def noise_rows(fig: Figures, spec: Spec, first_corner: int = 1) -> list[Row]:
