@@ -139,6 +139,13 @@ def adjoint(system: AcSystem, freqs: np.ndarray) -> tuple[np.ndarray, np.ndarray
     n, i_in, out = c.n, c.input, c.output
     rs = system.source_resistance
     z = np.zeros((*y.shape[:2], n + 2), dtype=complex)
+    ys = system._source_admittance(f)  # Rs in series with the source capacitance
+    if ys is not None:
+        y[:, :, i_in, i_in] += ys
+        rhs = np.zeros(y.shape[:3], dtype=complex)
+        rhs[:, :, out] = 1.0
+        z[:, :, :n] = np.linalg.solve(np.swapaxes(y, -1, -2), rhs[..., None])[..., 0]
+        return z, z[:, :, i_in] * ys
     if np.all(rs > 0):
         gs = 1.0 / rs
         y[:, :, i_in, i_in] += gs[:, None]
@@ -203,7 +210,11 @@ def spectrum(system: AcSystem, sources: NoiseSources, freqs: np.ndarray) -> Nois
     f = system._freqs(freqs)
     z, gain = adjoint(system, f)
     h = z[:, :, sources.a] - z[:, :, sources.b]  # (B, F, S) transfer to the load voltage
-    out_each = (h.real ** 2 + h.imag ** 2) * sources.density(f)
+    density = sources.density(f)
+    ys = system._source_admittance(f)
+    if ys is not None:  # Rs's thermal EMF behind Rs + Cs: its Norton current 4kT0·Rs·|ys|²
+        density[:, :, -1] *= np.abs(ys * system.source_resistance[:, None]) ** 2
+    out_each = (h.real ** 2 + h.imag ** 2) * density
     return NoiseSpectrum(np.asarray(f), sources.labels, sources.owners, out_each, gain)
 
 
