@@ -19,6 +19,7 @@ from .circuit import Circuit, compile_design
 from .device import T_REF_C
 from .evaluate import IC_ACTIVE_MIN, Conditions, Figures, evaluate
 from .netlist import Design
+from .noise import NoisePlan
 
 
 @dataclass(frozen=True)
@@ -28,13 +29,15 @@ class Environment:
     ambient: tuple[float, float] = (T_REF_C, T_REF_C)
     supply_tolerance: float = 0.0
     band: tuple[float, float] | None = None  # (f_low, f_high) required; midband between
+    noise_at: float | None = None  # spot frequency of the noise figures (None: midband)
 
     @classmethod
     def for_design(cls, design: Design, spec=None) -> Environment:
         """From the spec when given, else from what the design file recorded."""
         if spec is not None:
             r = spec.require
-            return cls(tuple(r.ambient), spec.supply.tolerance, (r.f_low, r.f_high))
+            return cls(tuple(r.ambient), spec.supply.tolerance, (r.f_low, r.f_high),
+                       r.noise_at)
         cond = design.extra.get("conditions") or {}
         amb = cond.get("ambient") or (T_REF_C, T_REF_C)
         return cls(
@@ -99,6 +102,9 @@ class PointResult:
     f_high: float = math.nan
     z_in: float = math.nan
     z_out: float = math.nan
+    noise: float | None = None  # V/√Hz input-referred at the spot frequency
+    noise_figure: float | None = None  # dB; None without a source resistance
+    noise_rms: float | None = None  # V input-referred over the band
 
     @property
     def gain_db(self) -> float:
@@ -148,6 +154,19 @@ class Analysis:
     @property
     def all_active(self) -> bool:
         return all(c.active for c in self.corners)
+
+    @property
+    def noise(self) -> float | None:
+        """Input-referred density at the spot frequency, nominal (V/√Hz)."""
+        return self.nominal.noise
+
+    @property
+    def noise_figure(self) -> float | None:
+        return self.nominal.noise_figure
+
+    @property
+    def noise_rms(self) -> float | None:
+        return self.nominal.noise_rms
 
     def max_corner(self, attr: str) -> float:
         return max(getattr(c, attr) for c in self.corners)
@@ -266,9 +285,21 @@ def point_results(
                 f_high=float(fig.f_high[k, j]),
                 z_in=float(fig.z_in[k, j]),
                 z_out=float(fig.z_out[k, j]),
+                **_noise_point(fig, k, j),
             )
         )
     return results
+
+
+def _noise_point(fig: Figures, k: int, j: int) -> dict[str, float | None]:
+    """The noise figures of value set k at condition j (None where not computed or
+    undefined: a noise figure without a source resistance)."""
+    out: dict[str, float | None] = {}
+    for name in ("noise", "noise_figure", "noise_rms"):
+        arr = getattr(fig, name)
+        x = None if arr is None else float(arr[k, j])
+        out[name] = x if x is not None and math.isfinite(x) else None
+    return out
 
 
 def analyze(design: Design, spec=None, environment: Environment | None = None) -> Analysis:
@@ -287,6 +318,7 @@ def analyze(design: Design, spec=None, environment: Environment | None = None) -
         load_capacitance=design.load_capacitance,
                    source_capacitance=design.source_capacitance,
         band=env.band,
+        noise=NoisePlan(at=env.noise_at),
     )
     points = point_results(circuit, conditions, fig)
     return Analysis(

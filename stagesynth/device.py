@@ -56,6 +56,7 @@ class Device:
     ft_current: float | None = None  # collector current at which `ft` is stated
     c_je: float = 0.0  # zero-bias base-emitter junction capacitance
     hfe_reverse: float = 1.0  # reverse current gain of the Ebers-Moll transport model
+    flicker_corner: float = 0.0  # Hz, 1/f corner of the base-current noise (0: none)
 
     @property
     def sign(self) -> int:
@@ -164,7 +165,11 @@ def hybrid_pi(device: Device, ic, vce, hfe, tj_c) -> HybridPi:
 
 
 # Built-in presets: generic, invented values in the range of common small-signal
-# parts. They are not any manufacturer's part and carry no part number.
+# parts. They are not any manufacturer's part and carry no part number. r_bb and
+# flicker_corner (the 1/f corner of the base-current noise) are invented too: a
+# general-purpose part with tens of ohms and a corner of a few hundred hertz, a
+# low-noise part with a low rx and a low corner, an RF part with a low rx and a
+# high corner.
 PRESETS: dict[str, Device] = {
     "generic-npn": Device(
         name="generic-npn",
@@ -185,6 +190,7 @@ PRESETS: dict[str, Device] = {
         theta_ja=250.0,
         ft_current=10e-3,
         c_je=8e-12,
+        flicker_corner=300.0,
     ),
     "generic-pnp": Device(
         name="generic-pnp",
@@ -205,6 +211,7 @@ PRESETS: dict[str, Device] = {
         theta_ja=250.0,
         ft_current=10e-3,
         c_je=10e-12,
+        flicker_corner=200.0,
     ),
     "lownoise-npn": Device(
         name="lownoise-npn",
@@ -225,6 +232,7 @@ PRESETS: dict[str, Device] = {
         theta_ja=250.0,
         ft_current=2e-3,
         c_je=9e-12,
+        flicker_corner=60.0,
     ),
     "rf-npn": Device(
         name="rf-npn",
@@ -245,5 +253,6 @@ PRESETS: dict[str, Device] = {
         theta_ja=400.0,
         ft_current=10e-3,
         c_je=1.2e-12,
+        flicker_corner=3e3,
     ),
 }

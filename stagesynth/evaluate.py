@@ -17,6 +17,7 @@ import numpy as np
 from .ac import AcSystem, linearize
 from .circuit import Circuit
 from .dc import DcBatch, solve_dc
+from .noise import NoisePlan, NoiseSources
 
 IC_ACTIVE_MIN = 100e-9  # A: below this collector current a transistor counts as cut off
 
@@ -76,6 +77,13 @@ class Figures:
     a_cut: np.ndarray  # (K, M, nQ) peak load amplitude to cutoff
     a_sat: np.ndarray  # (K, M, nQ) peak load amplitude to VCE = vce_sat
     system: AcSystem | None = None  # all K*M linearized members, ordered k*M + m
+    # noise (second release), (K, M) at every condition when asked for, else None
+    noise: np.ndarray | None = None  # V/√Hz input-referred at the spot frequency
+    noise_figure: np.ndarray | None = None  # dB (nan without a source resistance)
+    noise_rms: np.ndarray | None = None  # V input-referred over the band (nan if not asked)
+    noise_output_rms: np.ndarray | None = None  # V at the load over the band
+    noise_sources: NoiseSources | None = None  # generators of the K*M members
+    noise_band: tuple[np.ndarray, np.ndarray] | None = None  # (K,), (K,) integration band
 
     @property
     def gain_db(self) -> np.ndarray:
@@ -106,6 +114,7 @@ def evaluate(
     corners: str = "both",
     corner_guess: tuple[float, float] | None = None,
     source_capacitance: float = 0.0,
+    noise: NoisePlan | None = None,
 ) -> Figures:
     """Figures for K value sets (rows of r_values, c_values) at every condition.
 
@@ -115,6 +124,7 @@ def evaluate(
     need only one. The nominal members are searched outward from midband (or near
     `corner_guess` = (f_low, f_high) of a nearby design: a Monte Carlo); the other
     conditions start from their own value set's nominal corner, which they lie close to.
+    `noise` asks for the noise figures at every condition (noise.py).
     """
     r_values = np.atleast_2d(np.asarray(r_values, dtype=float))
     c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
@@ -159,6 +169,10 @@ def evaluate(
     swing = np.where(all_active, 2.0 * np.min(edges, axis=1, initial=np.inf), 0.0)
     if nq == 0:
         swing = np.zeros(k * m)
+    noise_fields = {}
+    if noise is not None:
+        noise_fields = _noise(circuit, system, dc, r_rep, ambient, source_resistance, noise,
+                              band, midband, f_low, f_high, m)
     return Figures(
         midband=midband,
         gain=gain.reshape(k, m),
@@ -176,6 +190,7 @@ def evaluate(
         a_cut=a_cut.reshape(k, m, nq),
         a_sat=a_sat.reshape(k, m, nq),
         system=system,
+        **noise_fields,
     )
 
 
@@ -206,6 +221,39 @@ def _corners(
     lo[::m], hi[::m] = lo0, hi0
     lo[rest], hi[rest] = lo_r, hi_r
     return lo, hi
+
+
+def _noise(circuit, system, dc, r_rep, ambient, source_resistance, plan: NoisePlan,
+           band, midband, f_low, f_high, m: int) -> dict:
+    """The noise fields of Figures for all K*M members (contract §2 "Noise").
+
+    The band is the required one; without it (a design analysed alone) the design's own
+    −3 dB band at nominal, a missing corner replaced by four decades from midband.
+    """
+    from .noise import build_sources, noise_figures
+
+    k = midband.size
+    if band is not None:
+        lo, hi = np.full(k, band[0]), np.full(k, band[1])
+    else:
+        f_lo, f_hi = f_low[::m], f_high[::m]  # the nominal members' own band
+        lo = np.where((f_lo > 0) & np.isfinite(f_lo), f_lo, midband * 1e-4)
+        hi = np.where(np.isfinite(f_hi) & (f_hi > 0), f_hi, midband * 1e4)
+    sources = build_sources(circuit, dc, r_rep, ambient, source_resistance)
+    spot = np.repeat(midband if plan.at is None else np.full(k, plan.at), m)
+    fm = np.repeat(midband, m)
+    rep_band = (np.repeat(lo, m), np.repeat(hi, m)) if plan.rms else (fm, fm * 1.0001)
+    nf = noise_figures(system, sources, spot, rep_band, fm, plan.per_decade)
+    rms = nf.rms if plan.rms else np.full(k * m, np.nan)
+    out_rms = nf.output_rms if plan.rms else np.full(k * m, np.nan)
+    return {
+        "noise": nf.density.reshape(k, m),
+        "noise_figure": nf.figure_db.reshape(k, m),
+        "noise_rms": rms.reshape(k, m),
+        "noise_output_rms": out_rms.reshape(k, m),
+        "noise_sources": sources,
+        "noise_band": (lo, hi),
+    }
 
 
 def _members(system: AcSystem, idx: np.ndarray) -> AcSystem:

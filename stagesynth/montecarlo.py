@@ -20,6 +20,7 @@ from .analysis import Environment, analyze, batch_values
 from .circuit import compile_design
 from .evaluate import Conditions, evaluate
 from .netlist import Design
+from .noise import plan_for
 from .spec import Spec
 from .verdict import Row, assess
 
@@ -112,6 +113,7 @@ def _judge_chunk(design, spec, circuit, sample: Sample, ambients, guess) -> tupl
                    source_capacitance=design.source_capacitance,
         band=(spec.require.f_low, spec.require.f_high),
         corner_guess=guess,
+        noise=plan_for(spec.require),
     )
     rows = assess(fig, spec, circuit, first_corner=0, ratings=False)
     ok_member = np.all(np.stack([row.ok for row in rows]), axis=0)
@@ -131,6 +133,10 @@ def _judge_chunk(design, spec, circuit, sample: Sample, ambients, guess) -> tupl
         "swing_vpp": worst(fig.swing_vpp[:, 0], np.min),
         "supply_current": worst(fig.supply_current[:, 0], np.max),
     }
+    for name in ("noise", "noise_figure", "noise_rms"):  # when the spec asks for them
+        if getattr(spec.require, "noise_figure_db" if name == "noise_figure" else name) is None:
+            continue
+        metrics[name] = worst(getattr(fig, name)[:, 0], np.max)
     return ok_unit, [_unit_row(row, n, a) for row in rows], metrics
 
 

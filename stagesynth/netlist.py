@@ -53,8 +53,9 @@ _DEVICE_FLOAT_KEYS = (
     "c_je",
     "hfe_reverse",
 )
+_DEVICE_FLOAT_KEYS += ("flicker_corner",)  # noise (second release)
 _SIGNED_DEVICE_KEYS = ("vbe_tempco", "hfe_tempco")
-_ZERO_OK_DEVICE_KEYS = ("r_bb", "vce_sat", "c_je")
+_ZERO_OK_DEVICE_KEYS = ("r_bb", "vce_sat", "c_je", "flicker_corner")
 
 
 @dataclass(frozen=True)

@@ -48,7 +48,14 @@ def point_to_dict(p: PointResult) -> dict[str, Any]:
             for ref, s in p.transistors.items()
         },
         "node_voltages": dict(p.node_voltages),
+        **_noise_keys(p),
     }
+
+
+def _noise_keys(p: PointResult) -> dict[str, float | None]:
+    """Contract §4 noise keys of one condition: V/√Hz, dB (None without a source
+    resistance), V."""
+    return {"noise": p.noise, "noise_figure": p.noise_figure, "noise_rms": p.noise_rms}
 
 
 def analysis_to_dict(analysis: Analysis, verdict: Verdict | None = None) -> dict[str, Any]:
@@ -67,6 +74,7 @@ def analysis_to_dict(analysis: Analysis, verdict: Verdict | None = None) -> dict
         "converged": analysis.converged,
         "nominal": point_to_dict(analysis.nominal),
         "corners": [point_to_dict(c) for c in analysis.corners],
+        **_noise_keys(analysis.nominal),
     }
     _add_return_loss(out, analysis)
     if verdict is not None:
@@ -102,4 +110,5 @@ def predicted_block(analysis: Analysis) -> dict[str, Any]:
         "swing_vpp": analysis.swing_vpp,
         "supply_current": analysis.supply_current,
         "supply_current_max": analysis.max_corner("supply_current"),
+        **_noise_keys(analysis.nominal),
     }

@@ -82,6 +82,22 @@ class Requirements:
     z_in_max: float | None = None  # ohm: z_in written as a range [z_in, z_in_max]
     z_out_min: float | None = None  # ohm: z_out written as a range [z_out_min, z_out]
     return_loss: float | None = None  # dB, at least, over f_low..f_high
+    # noise (second release): input-referred density V/sqrt(Hz), spot noise figure dB,
+    # band rms V (all "at most"), and the spot frequency (None: midband)
+    noise: float | None = None
+    noise_figure_db: float | None = None
+    noise_rms: float | None = None
+    noise_at: float | None = None
+
+    @property
+    def noise_frequency(self) -> float:
+        """Where `noise` and `noise_figure` are judged: noise_at, else midband."""
+        return self.noise_at if self.noise_at is not None else self.midband
+
+    @property
+    def wants_noise(self) -> bool:
+        """Whether any noise requirement is given."""
+        return any(x is not None for x in (self.noise, self.noise_figure_db, self.noise_rms))
 
     @property
     def gain_db(self) -> float:
@@ -135,6 +151,9 @@ _SECTION_KEYS: dict[str, tuple[str, ...]] = {
     "parts": ("resistors", "resistor_tolerance", "capacitors", "capacitor_tolerance",
               "resistor_max", "capacitor_max"),
 }
+# noise requirements (second release), a block of their own
+NOISE_REQUIRE_KEYS: tuple[str, ...] = ("noise", "noise_figure", "noise_rms", "noise_at")
+_SECTION_KEYS["require"] = (*_SECTION_KEYS["require"], *NOISE_REQUIRE_KEYS)
 TOP_KEYS: tuple[str, ...] = ("title", "supply", "source", "load", "require", "transistor", "parts")
 REQUIRED_DEVICE_KEYS: tuple[str, ...] = ("polarity", "hfe", "vbe", "ft", "c_cb")
 # [transistor] keys: quantity keys map to (unit or parser, lower bound: ">0", ">=0" or "").
@@ -155,6 +174,7 @@ _DEVICE_QUANTITIES: dict[str, tuple[str, str]] = {
     # second release, contract section 2: charge-control capacitance model
     "ft_current": ("A", ">0"),
     "c_je": ("F", ">=0"),
+    "flicker_corner": ("Hz", ">=0"),  # noise (second release)
 }
 # bare-number [transistor] keys (second release): the Ebers-Moll reverse current gain
 _DEVICE_NUMBERS: dict[str, str] = {"hfe_reverse": "a reverse current gain such as 1"}
@@ -478,6 +498,12 @@ def spec_from_mapping(data: Mapping[str, Any], file: str = "<spec>", *,
     req_table = _table(data, "require", file, required=True)
     require = _requirements(_scalar_bounds(req_table), file)
     require = _ranges_and_match(require, req_table, source, file)
+    if require.noise_figure_db is not None and source.resistance <= 0:
+        raise StageError(
+            "a noise figure needs a source resistance: with 0 Ω the source has no thermal "
+            "noise to compare with", file=file, key="require.noise_figure",
+            accepted="[source] resistance = \"600 Ω\" (greater than 0), or require.noise "
+            "(an input-referred density) instead of noise_figure")
 
     if "transistor" not in data:
         raise StageError("the section [transistor] is missing", file=file, key="transistor",
@@ -620,7 +646,27 @@ def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
         inverting=inverting,
         z_out=_quantity(r, "z_out", p, file, "Ω", ">0", None),
         yield_target=yield_target,
+        **_noise_requirements(r, file),
     )
+
+
+def _noise_requirements(r: Mapping[str, Any], file: str) -> dict[str, float | None]:
+    """noise, noise_figure, noise_rms, noise_at: each optional, each above zero."""
+    p = "require"
+    out: dict[str, float | None] = {
+        "noise": _quantity(r, "noise", p, file, "V/√Hz", ">0", None),
+        "noise_rms": _quantity(r, "noise_rms", p, file, "V", ">0", None),
+        "noise_at": _quantity(r, "noise_at", p, file, "Hz", ">0", None),
+        "noise_figure_db": None,
+    }
+    if "noise_figure" in r:
+        nf = parse_db(r["noise_figure"], key="require.noise_figure", file=file)
+        if not nf > 0:
+            raise StageError(f"must be greater than 0 dB, got {nf:g} dB (a noiseless "
+                             "amplifier has 0 dB)", file=file, key="require.noise_figure",
+                             accepted="a noise figure such as '2 dB'")
+        out["noise_figure_db"] = nf
+    return out
 
 
 def _ambient(value: Any, file: str) -> tuple[float, float]:
@@ -744,6 +790,11 @@ def spec_to_toml(spec: Spec) -> str:
         lines.append(f"z_out = {_q(r.z_out, 'Ω')}")
     if r.yield_target is not None:
         lines.append(f"yield = {_q(r.yield_target, '%')}")
+    for key, value, unit in (("noise", r.noise, "V/√Hz"), ("noise_figure", r.noise_figure_db,
+                             "dB"), ("noise_rms", r.noise_rms, "V"), ("noise_at", r.noise_at,
+                             "Hz")):
+        if value is not None:
+            lines.append(f"{key} = {_q(value, unit)}")
     lines += ["", "[transistor]"]
     if d.name:
         lines.append(f"name = {_toml_str(d.name)}")

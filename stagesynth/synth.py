@@ -35,6 +35,7 @@ from .errors import NoDesignError, StageError
 from .eseries import nearest, neighbours, values_between
 from .evaluate import Conditions, Figures, evaluate
 from .netlist import Design
+from .noise import plan_for
 from .practical import (
     CAP_HALVING_WORTH,
     MARGIN_CAP,
@@ -66,6 +67,7 @@ YIELD_CANDIDATES = 6  # standard-value candidates judged by Monte Carlo when a y
 YIELD_SCREEN_UNITS = 1500  # units per candidate while choosing (common random numbers)
 YIELD_FINAL_UNITS = 10_000  # units for the figure written to the design file
 _LF_SKIP = ("f_low",)  # capacitors are sized after the resistors
+SEARCH_NOISE_GRID = 8  # points per decade of the band rms while searching (final: 16)
 
 
 @dataclass(frozen=True)
@@ -144,7 +146,7 @@ class _Search:
                         load_capacitance=d.load_capacitance,
                         source_capacitance=d.source_capacitance,
                         band=(self.spec.require.f_low, self.spec.require.f_high),
-                        corners="high")
+                        corners="high", noise=plan_for(self.spec.require, SEARCH_NOISE_GRID))
 
     def screen(self, r: np.ndarray, spec: Spec) -> np.ndarray:
         """Indices of the candidates worth judging at every corner.
@@ -164,7 +166,8 @@ class _Search:
                        load_resistance=d.load_resistance,
                        load_capacitance=d.load_capacitance,
                         source_capacitance=d.source_capacitance,
-                       band=(spec.require.f_low, spec.require.f_high), corners="high")
+                       band=(spec.require.f_low, spec.require.f_high), corners="high",
+                       noise=plan_for(spec.require, SEARCH_NOISE_GRID))
         self.evaluated += k
         rows = assess(fig, spec, self.circuit, first_corner=0)
         score = smallest_margin(rows, _LF_SKIP)
@@ -300,6 +303,26 @@ def _physics_conflicts(spec: Spec) -> list[Conflict]:
             f"tolerance) and VCE(sat) = {eng(dev.vce_sat, 'V', 3)}",
             "ask for less swing, or raise the supply voltage",
         ))
+    out.extend(_noise_floor_conflicts(spec))
+    return out
+
+
+def _noise_floor_conflicts(spec: Spec) -> list[Conflict]:
+    """Noise requirements below the input transistor's physical floor (lownoise.py)."""
+    if not spec.require.wants_noise:
+        return []
+    from .lownoise import advice, unreachable
+
+    out = []
+    for fl, limit in unreachable(spec):
+        unit = {"noise": "V/√Hz", "noise_figure": "dB", "noise_rms": "V"}[fl.name]
+        out.append(Conflict(
+            fl.name, f"<= {_fmt(limit, unit)}",
+            f"no bias current or circuit gets below the floor of {_fmt(fl.value, unit)} "
+            f"({fl.condition}), set by {fl.cause}",
+            f"relax {fl.name} to {_fmt(1.1 * fl.value if unit != 'dB' else fl.value + 0.3, unit)}"
+            f" or more, or: {advice(spec, fl.name)}",
+        ))
     return out
 
 
@@ -390,6 +413,11 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
                 "resistor equal to the source resistance")
     if name.endswith(("ic_max", "vce_max", "p_max")):
         return "choose a transistor with higher ratings, or a lower supply"
+    if name in ("noise", "noise_figure", "noise_rms"):
+        from .lownoise import advice
+
+        relaxed = best + 0.2 if unit == "dB" else 1.05 * best
+        return f"relax {name} to {_fmt(relaxed, unit)}, or: {advice(spec, name)}"
     return "relax this requirement"
 
 
@@ -641,6 +669,8 @@ def _synthesize_family(
             if not more:
                 break
             limits.update(more)
+        if spec.require.wants_noise:
+            return _quiet_input_coupling(sized.design, spec), sized
         return sized.design, sized
 
     design, sizing = finish(best)
@@ -684,6 +714,7 @@ def _synthesize_family(
     notes = [
         f"Circuit: {family.TITLE} ({polarity}).",
         *family.describe(spec, design, analysis),
+        *_noise_notes(spec, analysis),
         *sizing.notes,
         *_kind_notes(kinds, spec),
         *yield_notes,
@@ -834,6 +865,36 @@ def _empty_reason(spec: Spec, family) -> str:
             if found:
                 return f"{head} {' together with '.join(shown[n] for n in names)} {tail}"
     return f"{head} these requirements together {tail}"
+QUIET_COUPLING = 3.0  # input coupling reactance at f_low at most Rs / this, when noise is asked
+CAP_LIMIT = 470e-6  # F, the largest capacitor the contract's parts section defaults to
+
+
+def _quiet_input_coupling(design: Design, spec: Spec) -> Design:
+    """Raise the input coupling capacitor so that its reactance at f_low stays well below
+    the source resistance: near f_low a small one leaves the base current's noise to
+    flow in the large bias resistors instead of the source (the gain falls, that noise
+    does not), which dominates a band-integrated noise. The low corner only moves down."""
+    rs = max(spec.source.resistance, 100.0)
+    target = QUIET_COUPLING / (2.0 * math.pi * spec.require.f_low * rs)
+    series = spec.parts.capacitors
+    values = {}
+    for p in design.parts:
+        if p.kind != "capacitor" or design.input not in p.nodes or p.value >= target:
+            continue
+        opts = sorted({nearest(target, series), *neighbours(target, series, 1)})
+        up = [x for x in opts if x >= target]
+        cap = min(CAP_LIMIT, spec.parts.capacitor_max)  # never past the part limit
+        values[p.ref] = min(min(up) if up else max(opts), max(cap, p.value))
+    return design.with_values(values) if values else design
+
+
+def _noise_notes(spec: Spec, analysis: Analysis) -> list[str]:
+    """The noise rationale (dominant term, bias current against the optimum) when asked."""
+    if not spec.require.wants_noise:
+        return []
+    from .lownoise import rationale
+
+    return rationale(spec, analysis)
 
 
 def _low_frequency_droop(design: Design, spec: Spec, search: _Search) -> float:

@@ -113,6 +113,23 @@ def status_text(c: Check) -> str:
     return f"{'over' if c.relation in ('<=', '<') else 'short'} by {amount}"
 
 
+def _noise_rows(analysis: Analysis) -> list[list[str]]:
+    """Nominal noise figures (input-referred), with where they are taken."""
+    if analysis.noise is None:
+        return []
+    at = analysis.environment.noise_at or analysis.midband
+    fig = analysis.figures
+    rows = [["noise", f"{fmt(analysis.noise, 'V/√Hz')} input-referred at {fmt(at, 'Hz')}"]]
+    if analysis.noise_figure is not None:
+        rows.append(["noise figure", f"{analysis.noise_figure:.2f} dB at {fmt(at, 'Hz')} "
+                                     "(source at 290 K)"])
+    if analysis.noise_rms is not None and fig is not None and fig.noise_band is not None:
+        lo, hi = float(fig.noise_band[0][0]), float(fig.noise_band[1][0])
+        rows.append(["noise rms", f"{fmt(analysis.noise_rms, 'V')} input-referred, "
+                                  f"{fmt(lo, 'Hz')} … {fmt(hi, 'Hz')}"])
+    return rows
+
+
 def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
     d = analysis.design
     out = [f"{d.title or 'design'}" + (f"  [{d.topology}]" if d.topology else "")]
@@ -130,6 +147,7 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
         ["supply current", fmt(analysis.supply_current, "A")],
         ["swing", f"{fmt(analysis.swing_vpp, 'Vpp')} (smallest over corners: "
                   f"{worst.condition.label}, {worst.swing_limit})"],
+        *_noise_rows(analysis),
     ]
     out += _table(["figure", "value"], rows)
     off = [f"{ref} {s.region}" for ref, s in analysis.nominal.transistors.items()

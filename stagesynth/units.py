@@ -63,6 +63,9 @@ UNITS: dict[str, tuple[str, tuple[str, ...], str]] = {
     "K/W": ("thermal resistance", ("K/W", "°C/W", "degC/W"), "'250 K/W' or 250"),
     "V/K": ("voltage temperature coefficient", ("V/K", "V/°C", "V/degC"), "'-2 mV/K' or -0.002"),
     "s": ("time", ("s",), "'10 ms' or 0.01"),
+    # noise: a spectral density (spellings of the square root of hertz as people write it)
+    "V/√Hz": ("noise density", ("V/√Hz", "V/√(Hz)", "V/rtHz", "V/sqrt(Hz)", "V/sqrtHz",
+                                "V/Hz^0.5", "V/Hz^(1/2)"), "'3 nV/√Hz', '3 nV/rtHz' or 3e-9"),
 }
 # Other things a user might write, only to name them in a "wrong unit" message.
 _OTHER_UNITS: dict[str, str] = {

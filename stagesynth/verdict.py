@@ -152,6 +152,7 @@ def assess(
         rows.append(_at_most("supply_current", cur[np.arange(cur.shape[0]), j],
                              r.supply_current, "A", "every corner", j + first_corner))
     rows.extend(_range_and_match_rows(fig, spec, first_corner))
+    rows.extend(noise_rows(fig, spec, first_corner))
     if ratings:
         rows.extend(_rating_rows(fig, circuit, corners))
     return rows
@@ -201,6 +202,24 @@ def _range_and_match_rows(fig: Figures, spec: Spec, first_corner: int) -> list[R
         rl = worst_return_loss(fig.system, spec.source.resistance, (r.f_low, r.f_high))
         rows.append(_worst_row(_at_least, "return_loss", rl.reshape(k, m)[:, judged],
                                r.return_loss, "dB", judged))
+    return rows
+
+
+def noise_rows(fig: Figures, spec: Spec, first_corner: int = 1) -> list[Row]:
+    """noise, noise_figure, noise_rms: each at most its limit, at nominal and every corner
+    (contract §2, second release); the noisiest condition decides."""
+    r = spec.require
+    if not r.wants_noise:
+        return []
+    if fig.noise is None:
+        raise ValueError("the spec asks for noise: evaluate(..., noise=NoisePlan(...))")
+    judged = _judged(fig.supply_current.shape[1], first_corner)
+    rows = []
+    for name, arr, limit, unit in (("noise", fig.noise, r.noise, "V/√Hz"),
+                                   ("noise_figure", fig.noise_figure, r.noise_figure_db, "dB"),
+                                   ("noise_rms", fig.noise_rms, r.noise_rms, "V")):
+        if limit is not None:
+            rows.append(_worst_row(_at_most, name, arr[:, judged], limit, unit, judged))
     return rows
 
 

@@ -22,7 +22,7 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
 
 PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg")
 BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
-                "stage.s2p", "histograms.svg", "pulse.svg")
+                "stage.s2p", "histograms.svg", "pulse.svg", "noise.svg")
 
 
 def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
@@ -92,6 +92,11 @@ def write_bundle(
         svgs["pulse"] = contents["pulse.svg"].decode("utf-8")
     else:
         names.remove("pulse.svg")
+    from .noiseplot import noise_plot
+    from .plots import figure_svg as _svg
+
+    contents["noise.svg"] = _svg(noise_plot(analysis, spec))
+    svgs["noise"] = contents["noise.svg"].decode("utf-8")
     contents["schematic.svg"] = svgs["schematic"].encode("utf-8")
     contents["bom.csv"] = bom_csv(design, analysis, spec, rows=rows).encode("utf-8")
     contents["stage.s2p"] = stage_touchstone(design, analysis).encode("latin-1")

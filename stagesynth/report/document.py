@@ -35,7 +35,7 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
     from .poles import PoleZeroMap
 
 FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg",
-                "histograms": "histograms.svg", "pulse": "pulse.svg"}
+                "histograms": "histograms.svg", "pulse": "pulse.svg", "noise": "noise.svg"}
 
 SAFETY = (
     "Check every voltage and power rating with margin against the worst case in this "
@@ -338,6 +338,9 @@ def build_document(
     if not pz.stable:
         pz_blocks.append("Warning: a pole lies in the right half-plane: the stage is unstable.")
     sections.append(Section("Poles and zeros", tuple(pz_blocks)))
+    noise = _noise_section(analysis, spec)
+    if noise is not None:
+        sections.append(noise)
     if robustness is not None:
         sections.append(_robustness_section(robustness, spec))
     if notes:
@@ -348,6 +351,44 @@ def build_document(
         )))
     sections.append(Section("Safety", (list(SAFETY),), css_class="safety"))
     return Document(title, subtitle, status, ok, tuple(sections))
+
+
+def _noise_section(analysis: Analysis, spec: Spec | None) -> Section | None:
+    """Noise: density and noise figure against frequency, each part's share at the spot
+    frequency, band rms and SNR at the rated swing (all quoted from noise.noise_summary)."""
+    from ..noise import noise_summary
+
+    rated = spec.require.swing_vpp if spec is not None and spec.require.swing_vpp else None
+    ns = noise_summary(analysis, rated)
+    if ns is None:
+        return None
+    at = fmt(ns.spot, "Hz")
+    figures = [f"input-referred density {fmt(ns.density, 'V/√Hz')} at {at}"]
+    if ns.figure_db is not None:
+        figures.append(f"noise figure {ns.figure_db:.2f} dB at {at} (source resistance at "
+                       f"290 K: {fmt(ns.source_density, 'V/√Hz')})")
+    figures.append(f"input-referred rms {fmt(ns.rms, 'V')} over {fmt(ns.band[0], 'Hz')} … "
+                   f"{fmt(ns.band[1], 'Hz')} (at the load: {fmt(ns.output_rms, 'V')})")
+    if math.isfinite(ns.snr_db):
+        figures.append(f"signal-to-noise ratio {ns.snr_db:.1f} dB at the "
+                       f"{'rated' if rated else 'smallest corner'} swing of "
+                       f"{fmt(ns.swing_vpp, 'Vpp')} (sine) against the stage's own output "
+                       "noise over the band")
+    rows = tuple((c.label, fmt(c.density2 ** 0.5, "V/√Hz"), f"{100 * c.share:.1f} %")
+                 for c in ns.contributions if c.share >= 0.001)
+    return Section("Noise", (
+        "Every resistor at the ambient, each transistor's base shot noise (with its 1/f "
+        "corner), collector shot noise and rx, the source resistance at 290 K; the load is "
+        "noiseless. Densities are referred to the source EMF by the gain; the requirement "
+        "rows judge them at nominal and at every corner (nominal shown here).",
+        figures,
+        Figure("noise", "Noise density and noise figure",
+               "Input-referred noise density of the nominal stage (solid), the source "
+               "resistance's own thermal noise for reference (dashed) and the requirement "
+               "(triangle); below it the spot noise figure, when the source has a resistance."),
+        f"Contributions at {at}, referred to the input (shares of the stage's own noise):",
+        Table(("generator", "density", "share"), rows, numeric=(1, 2)),
+    ))
 
 
 def _robustness_section(rob, spec: Spec | None) -> Section:
@@ -621,12 +662,14 @@ def render_html(doc: Document, svgs: Mapping[str, str]) -> str:
 
 def figure_svgs(design: Design, analysis: Analysis, spec: Spec | None = None) -> dict[str, str]:
     """SVG text of the three report figures, keyed as in FIGURE_FILES."""
+    from .noiseplot import noise_plot
     from .plots import bode_figure, figure_svg, impedance_figure
 
     return {
         "schematic": schematic_svg(design, analysis),
         "bode": figure_svg(bode_figure(analysis, spec)).decode("utf-8"),
         "impedance": figure_svg(impedance_figure(analysis, spec)).decode("utf-8"),
+        "noise": figure_svg(noise_plot(analysis, spec)).decode("utf-8"),
     }
 
 

@@ -40,7 +40,7 @@ from .ce_ef import (
     solve_re1,
     within_current,
 )
-from .common_emitter import _vbe, ic_range
+from .common_emitter import _vbe, ic_range, noise_grid, noise_optimal_current
 
 NAME = "ce_ce"
 TITLE = "two capacitor-coupled common-emitter stages"
@@ -161,7 +161,10 @@ def first_cut(spec: Spec) -> FirstCut:
     amp = max(spec.require.swing_vpp / 2.0, 0.05)
     out = _output_stage(spec)
     _, hi = ic_range(spec)
-    ic1 = np.geomspace(10e-6, max(min(hi, 3e-3), 20e-6), 5)
+    top1 = max(min(hi, 3e-3), 20e-6)
+    ic1 = np.geomspace(10e-6, top1, 5)
+    ic1 = noise_grid(spec, ic1, 10e-6, max(top1, min(hi, 3.0 * (noise_optimal_current(spec)
+                                                                  or 0.0))))
     vce_frac = np.array([0.35, 0.55])
     stiff = np.array([3.0, 8.0, 20.0])
     J, IC1, VCEf, K1 = (x.ravel() for x in np.meshgrid(np.arange(out["ic"].size), ic1,

@@ -93,12 +93,12 @@ def first_cut(spec: Spec, *, ic_points: int = 14) -> FirstCut:
     given IC, and VCE = VBE + IB RF follows from K alone (the classic trade of this
     bias: a stiffer loop leaves less VCE). VE then splits RC + RE.
     """
-    from .common_emitter import ic_range
+    from .common_emitter import ic_range, noise_grid
 
     dev = spec.transistor
     vcc = spec.supply.voltage
     lo, hi = ic_range(spec)
-    ic = np.geomspace(lo, hi, ic_points)
+    ic = noise_grid(spec, np.geomspace(lo, hi, ic_points), lo, hi)
     stiff = np.array([0.35, 0.5, 0.7, 1.0, 1.4, 2.0, 3.0])
     ve_frac = np.array([0.05, 0.1, 0.15, 0.22])
     share = np.array([0.3, 0.6, 0.85])  # of RF on the base side (R2)

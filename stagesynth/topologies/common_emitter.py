@@ -85,7 +85,36 @@ def ic_range(spec: Spec) -> tuple[float, float]:
     if r.supply_current is not None:
         hi = min(hi, 0.9 * r.supply_current)
     lo = min(lo, hi / 4.0)
+    ic_opt = noise_optimal_current(spec)
+    if ic_opt is not None:  # cover the noise optimum, within the same limits
+        lo = min(lo, 0.3 * ic_opt)
+        cap = hi if r.supply_current is not None else 30e-3
+        if dev.ic_max:
+            cap = min(max(cap, hi), 0.5 * dev.ic_max)
+        hi = max(hi, min(3.0 * ic_opt, cap))
+        lo = max(min(lo, hi / 4.0), 1e-6)
     return lo, hi
+
+
+def noise_optimal_current(spec: Spec) -> float | None:
+    """IC ≈ VT·√β/(Rs + rx) at the spot frequency when the spec asks for noise (else None)."""
+    if not spec.require.wants_noise:
+        return None
+    from ..lownoise import optimal_current
+
+    dev = spec.transistor
+    ic = optimal_current(dev, spec.source.resistance, dev.hfe_nominal,
+                         spec.require.noise_frequency)
+    return ic if np.isfinite(ic) else None
+
+
+def noise_grid(spec: Spec, ic: np.ndarray, lo: float, hi: float) -> np.ndarray:
+    """The current grid with the noise-optimal current and its neighbours added."""
+    ic_opt = noise_optimal_current(spec)
+    if ic_opt is None:
+        return ic
+    extra = ic_opt * np.array([0.5, 0.7, 1.0, 1.4, 2.0])
+    return np.unique(np.concatenate([ic, np.clip(extra, lo, hi)]))
 
 
 def first_cut(spec: Spec, *, ic_points: int = 14) -> FirstCut:
@@ -98,10 +127,17 @@ def first_cut(spec: Spec, *, ic_points: int = 14) -> FirstCut:
     dev = spec.transistor
     vcc = spec.supply.voltage
     lo, hi = ic_range(spec)
-    ic = np.geomspace(lo, hi, ic_points)
+    if spec.require.wants_noise:  # five more points around the noise optimum follow
+        ic_points = max(ic_points - 5, 8)
+    ic = noise_grid(spec, np.geomspace(lo, hi, ic_points), lo, hi)
     ve_frac = np.array([0.05, 0.09, 0.14, 0.2])
     vce_frac = np.array([0.2, 0.3, 0.4, 0.5, 0.6, 0.7])
-    stiff = np.array([3.0, 6.0, 12.0, 24.0])
+    if spec.require.wants_noise:  # a small RC lets RE1 (4kT·RE1 at the input) shrink
+        vce_frac = np.array([0.2, 0.35, 0.5, 0.65, 0.8, 0.9])
+    # a divider's thermal noise current flows in the source resistance: when noise is
+    # asked, a softer (larger) divider is tried too
+    stiff = np.array([1.5, 3.0, 6.0, 12.0] if spec.require.wants_noise
+                     else [3.0, 6.0, 12.0, 24.0])
     IC, VEf, VCEf, K = (a.ravel() for a in np.meshgrid(ic, ve_frac, vce_frac, stiff,
                                                            indexing="ij"))
     beta = dev.hfe_nominal
