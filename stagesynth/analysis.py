@@ -28,13 +28,15 @@ class Environment:
     ambient: tuple[float, float] = (T_REF_C, T_REF_C)
     supply_tolerance: float = 0.0
     band: tuple[float, float] | None = None  # (f_low, f_high) required; midband between
+    ripple_at: float = 100.0  # Hz, where supply rejection is taken (contract default)
 
     @classmethod
     def for_design(cls, design: Design, spec=None) -> Environment:
         """From the spec when given, else from what the design file recorded."""
         if spec is not None:
             r = spec.require
-            return cls(tuple(r.ambient), spec.supply.tolerance, (r.f_low, r.f_high))
+            return cls(tuple(r.ambient), spec.supply.tolerance, (r.f_low, r.f_high),
+                       float(getattr(r, "ripple_at", 100.0)))
         cond = design.extra.get("conditions") or {}
         amb = cond.get("ambient") or (T_REF_C, T_REF_C)
         return cls(
@@ -99,6 +101,13 @@ class PointResult:
     f_high: float = math.nan
     z_in: float = math.nan
     z_out: float = math.nan
+    # supply and stability (second release): this condition's own figures
+    supply_rejection: float = math.nan  # dB at the environment's ripple_at
+    peaking_db: float = math.nan  # largest |gain| over its midband value, dB
+    peak_freq: float = math.nan  # Hz
+    stable: bool = True  # every pole in the left half-plane
+    swing_mid_vpp: float = math.nan  # swing with the small-signal ratios at midband
+    swing_top_vpp: float = math.nan  # ... at the required f_high (nan without a band)
 
     @property
     def gain_db(self) -> float:
@@ -148,6 +157,23 @@ class Analysis:
     @property
     def all_active(self) -> bool:
         return all(c.active for c in self.corners)
+
+    @property
+    def supply_rejection(self) -> float:
+        """Nominal supply rejection, dB at the environment's ripple_at."""
+        return self.nominal.supply_rejection
+
+    @property
+    def peaking_db(self) -> float:
+        return self.nominal.peaking_db
+
+    @property
+    def stable(self) -> bool:
+        return self.nominal.stable
+
+    @property
+    def stable_everywhere(self) -> bool:
+        return self.nominal.stable and all(c.stable for c in self.corners)
 
     def max_corner(self, attr: str) -> float:
         return max(getattr(c, attr) for c in self.corners)
@@ -266,9 +292,23 @@ def point_results(
                 f_high=float(fig.f_high[k, j]),
                 z_in=float(fig.z_in[k, j]),
                 z_out=float(fig.z_out[k, j]),
+                **_response_fields(fig, k, j),
             )
         )
     return results
+
+
+def _response_fields(fig: Figures, k: int, j: int) -> dict:
+    """Supply rejection, peaking, stability and the two swing figures of one member."""
+    out: dict = {}
+    for name in ("supply_rejection", "peaking_db", "peak_freq", "swing_mid_vpp",
+                 "swing_top_vpp"):
+        arr = getattr(fig, name)
+        if arr is not None:
+            out[name] = float(arr[k, j])
+    if fig.stable is not None:
+        out["stable"] = bool(fig.stable[k, j])
+    return out
 
 
 def analyze(design: Design, spec=None, environment: Environment | None = None) -> Analysis:
@@ -287,6 +327,7 @@ def analyze(design: Design, spec=None, environment: Environment | None = None) -
         load_capacitance=design.load_capacitance,
                    source_capacitance=design.source_capacitance,
         band=env.band,
+        ripple_at=env.ripple_at,
     )
     points = point_results(circuit, conditions, fig)
     return Analysis(

@@ -76,6 +76,14 @@ class Figures:
     a_cut: np.ndarray  # (K, M, nQ) peak load amplitude to cutoff
     a_sat: np.ndarray  # (K, M, nQ) peak load amplitude to VCE = vce_sat
     system: AcSystem | None = None  # all K*M linearized members, ordered k*M + m
+    # second release: supply and stability (contract §2), every member; None when not asked
+    supply_rejection: np.ndarray | None = None  # (K, M) dB at ripple_at
+    peaking_db: np.ndarray | None = None  # (K, M) largest |gain| over midband |gain|, dB
+    peak_freq: np.ndarray | None = None  # (K, M) Hz where that largest |gain| lies
+    stable: np.ndarray | None = None  # (K, M) bool: every pole in the left half-plane
+    swing_mid_vpp: np.ndarray | None = None  # (K, M) swing with the ratios at midband
+    swing_top_vpp: np.ndarray | None = None  # (K, M) ... at the required f_high (nan: none)
+    ripple_at: float = 100.0  # Hz, where supply_rejection was taken
 
     @property
     def gain_db(self) -> np.ndarray:
@@ -106,6 +114,8 @@ def evaluate(
     corners: str = "both",
     corner_guess: tuple[float, float] | None = None,
     source_capacitance: float = 0.0,
+    ripple_at: float = 100.0,
+    response: bool = True,
 ) -> Figures:
     """Figures for K value sets (rows of r_values, c_values) at every condition.
 
@@ -115,6 +125,8 @@ def evaluate(
     need only one. The nominal members are searched outward from midband (or near
     `corner_guess` = (f_low, f_high) of a nearby design: a Monte Carlo); the other
     conditions start from their own value set's nominal corner, which they lie close to.
+    Supply rejection at `ripple_at` is taken at every member; peaking and stability
+    (a sweep and a pole computation per member) only with `response`.
     """
     r_values = np.atleast_2d(np.asarray(r_values, dtype=float))
     c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
@@ -145,20 +157,35 @@ def evaluate(
     z_in = np.abs(system.z_in(fm_all[:, None])[:, 0])
     z_out = np.abs(system.z_out(fm_all[:, None])[:, 0])
 
-    # swing at every condition (section 2): cutoff or saturation, whichever comes first
+    # swing at every condition (section 2): cutoff or saturation, whichever comes first,
+    # with the small-signal ratios at midband and at the required f_high (second release)
     ic_ratio, vce_ratio = system.swing_ratios_of(v_mid)
     vce_sat = np.array([q.device.vce_sat for q in circuit.bjts])
     # contract section 2 (second release): active only with VCE >= vce_sat and IC >= 100 nA
     q_active = (dc.vce >= vce_sat) & (dc.ic >= IC_ACTIVE_MIN) & dc.converged[:, None]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        a_cut = np.where(ic_ratio > 0, dc.ic / ic_ratio, np.inf)
-        a_sat = np.where(vce_ratio > 0, (dc.vce - vce_sat) / vce_ratio, np.inf)
-    edges = np.concatenate([a_cut, a_sat], axis=1)  # (K*M, 2nQ)
-    edge = np.argmin(edges, axis=1) if nq else np.zeros(k * m, dtype=int)
     all_active = np.all(q_active, axis=1) & dc.converged
-    swing = np.where(all_active, 2.0 * np.min(edges, axis=1, initial=np.inf), 0.0)
+    swing_mid = _swing(dc, ic_ratio, vce_ratio, vce_sat, all_active)[0]
+    swing_top = np.full(k * m, np.nan)
+    if band is not None and nq:
+        ic_top, vce_top = system.swing_ratios(np.full(k * m, float(band[1])))
+        swing_top = _swing(dc, ic_top, vce_top, vce_sat, all_active)[0]
+        ic_ratio = np.maximum(ic_ratio, ic_top)
+        vce_ratio = np.maximum(vce_ratio, vce_top)
+    swing, a_cut, a_sat, edge = _swing(dc, ic_ratio, vce_ratio, vce_sat, all_active)
     if nq == 0:
         swing = np.zeros(k * m)
+
+    from .supply import rejection_db
+
+    psrr = rejection_db(system, ripple_at).reshape(k, m)
+    peak_db = peak_f = stable = None
+    if response:
+        from .peaking import peaking, stability
+
+        fm_all = np.repeat(midband, m)
+        pk = peaking(system, fm_all)
+        peak_db, peak_f = pk.peak_db.reshape(k, m), pk.f_peak.reshape(k, m)
+        stable = stability(system, fm_all).stable.reshape(k, m)
     return Figures(
         midband=midband,
         gain=gain.reshape(k, m),
@@ -176,7 +203,27 @@ def evaluate(
         a_cut=a_cut.reshape(k, m, nq),
         a_sat=a_sat.reshape(k, m, nq),
         system=system,
+        supply_rejection=psrr,
+        peaking_db=peak_db,
+        peak_freq=peak_f,
+        stable=stable,
+        swing_mid_vpp=swing_mid.reshape(k, m),
+        swing_top_vpp=swing_top.reshape(k, m),
+        ripple_at=float(ripple_at),
     )
+
+
+def _swing(dc: DcBatch, ic_ratio: np.ndarray, vce_ratio: np.ndarray, vce_sat: np.ndarray,
+           all_active: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(swing Vpp, a_cut, a_sat, limiting edge) per member from the swing ratios."""
+    nq = ic_ratio.shape[1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a_cut = np.where(ic_ratio > 0, dc.ic / ic_ratio, np.inf)
+        a_sat = np.where(vce_ratio > 0, (dc.vce - vce_sat) / vce_ratio, np.inf)
+    edges = np.concatenate([a_cut, a_sat], axis=1)  # (K*M, 2nQ)
+    edge = np.argmin(edges, axis=1) if nq else np.zeros(edges.shape[0], dtype=int)
+    swing = np.where(all_active, 2.0 * np.min(edges, axis=1, initial=np.inf), 0.0)
+    return swing, a_cut, a_sat, edge
 
 
 def _corners(

@@ -48,6 +48,19 @@ def point_to_dict(p: PointResult) -> dict[str, Any]:
             for ref, s in p.transistors.items()
         },
         "node_voltages": dict(p.node_voltages),
+        **response_dict(p),
+    }
+
+
+def response_dict(p: PointResult) -> dict[str, Any]:
+    """Supply rejection, peaking and stability of one condition (contract §4 keys)."""
+    return {
+        "supply_rejection": _num(p.supply_rejection),
+        "peaking_db": _num(p.peaking_db),
+        "peak_frequency": _num(p.peak_freq),
+        "stable": p.stable,
+        "swing_midband_vpp": _num(p.swing_mid_vpp),
+        "swing_f_high_vpp": _num(p.swing_top_vpp),
     }
 
 
@@ -67,6 +80,11 @@ def analysis_to_dict(analysis: Analysis, verdict: Verdict | None = None) -> dict
         "converged": analysis.converged,
         "nominal": point_to_dict(analysis.nominal),
         "corners": [point_to_dict(c) for c in analysis.corners],
+        "supply_rejection": _num(analysis.nominal.supply_rejection),
+        "ripple_at": analysis.environment.ripple_at,
+        "peaking_db": _num(analysis.nominal.peaking_db),
+        "stable": analysis.nominal.stable,
+        "stable_everywhere": analysis.stable_everywhere,
     }
     _add_return_loss(out, analysis)
     if verdict is not None:
@@ -102,4 +120,14 @@ def predicted_block(analysis: Analysis) -> dict[str, Any]:
         "swing_vpp": analysis.swing_vpp,
         "supply_current": analysis.supply_current,
         "supply_current_max": analysis.max_corner("supply_current"),
+        "supply_rejection": _num(analysis.nominal.supply_rejection),
+        "ripple_at": analysis.environment.ripple_at,
+        "peaking_db": _num(analysis.nominal.peaking_db),
+        "stable": analysis.nominal.stable,
+        "supply_rejection_worst": _num(min(
+            (p.supply_rejection for p in (analysis.nominal, *analysis.corners)),
+            default=math.nan)),
+        "peaking_db_worst": _num(max(
+            (p.peaking_db for p in (analysis.nominal, *analysis.corners)), default=math.nan)),
+        "stable_everywhere": analysis.stable_everywhere,
     }

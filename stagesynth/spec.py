@@ -82,6 +82,10 @@ class Requirements:
     z_in_max: float | None = None  # ohm: z_in written as a range [z_in, z_in_max]
     z_out_min: float | None = None  # ohm: z_out written as a range [z_out_min, z_out]
     return_loss: float | None = None  # dB, at least, over f_low..f_high
+    # supply and stability (second release)
+    supply_rejection_db: float | None = None  # dB at ripple_at, at least
+    ripple_at: float = 100.0  # Hz
+    peaking_db: float = 3.0  # dB, |gain| nowhere more than this above midband
 
     @property
     def gain_db(self) -> float:
@@ -129,6 +133,8 @@ _SECTION_KEYS: dict[str, tuple[str, ...]] = {
         "gain", "gain_tolerance", "f_low", "f_high", "z_in", "swing", "supply_current",
         "ambient", "inverting", "z_out", "yield",
         "return_loss",
+        # supply and stability (second release)
+        "supply_rejection", "ripple_at", "peaking",
     ),
     "parts": ("resistors", "resistor_tolerance", "capacitors", "capacitor_tolerance"),
 }
@@ -605,6 +611,7 @@ def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
             raise StageError(f"must lie above 0 and at most 100 %, got "
                              f"{format_quantity(yield_target, '%')}", file=file,
                              key="require.yield", accepted="a share such as '99 %'")
+    supply_rejection, ripple_at, peaking = _supply_and_stability(r, file)
     return Requirements(
         gain=gain,
         f_low=f_low,
@@ -617,7 +624,30 @@ def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
         inverting=inverting,
         z_out=_quantity(r, "z_out", p, file, "Ω", ">0", None),
         yield_target=yield_target,
+        supply_rejection_db=supply_rejection,
+        ripple_at=ripple_at,
+        peaking_db=peaking,
     )
+
+
+def _supply_and_stability(r: Mapping[str, Any], file: str) -> tuple[float | None, float, float]:
+    """(supply_rejection dB or None, ripple_at Hz, peaking dB) from [require]."""
+    rejection = None
+    if "supply_rejection" in r:
+        rejection = parse_db(r["supply_rejection"], key="require.supply_rejection", file=file)
+        if not math.isfinite(rejection):
+            raise StageError(f"must be a finite level, got {r['supply_rejection']!r}", file=file,
+                             key="require.supply_rejection",
+                             accepted="a level in dB such as '40 dB'")
+    ripple_at = _quantity(r, "ripple_at", "require", file, "Hz", ">0", 100.0)
+    peaking = 3.0
+    if "peaking" in r:
+        peaking = parse_db(r["peaking"], key="require.peaking", file=file)
+        if not (math.isfinite(peaking) and peaking >= 0):
+            raise StageError(f"must be 0 dB or more, got {r['peaking']!r}", file=file,
+                             key="require.peaking",
+                             accepted="a level in dB such as '1 dB' (0 dB: no rise at all)")
+    return rejection, ripple_at, peaking
 
 
 def _ambient(value: Any, file: str) -> tuple[float, float]:
@@ -721,6 +751,10 @@ def spec_to_toml(spec: Spec) -> str:
         lines.append(f"z_out = {_q(r.z_out, 'Ω')}")
     if r.yield_target is not None:
         lines.append(f"yield = {_q(r.yield_target, '%')}")
+    if r.supply_rejection_db is not None:
+        lines.append(f"supply_rejection = {_q(r.supply_rejection_db, 'dB')}")
+    lines.append(f"ripple_at = {_q(r.ripple_at, 'Hz')}")
+    lines.append(f"peaking = {_q(r.peaking_db, 'dB')}")
     lines += ["", "[transistor]"]
     if d.name:
         lines.append(f"name = {_toml_str(d.name)}")

@@ -61,9 +61,9 @@ def write_bundle(
     `pz`: the pole/zero map when the caller has it already (it is not computed twice);
     `pulse`: the pulse response to show (default: the engine's, default pulse width).
     """
+    from ..polezero import pole_zero_map
     from .bom import bom_csv, bom_rows
     from .document import report_html, report_markdown, schematic_svg
-    from .poles import pole_zero_map
     from .touchstone import stage_touchstone
 
     out.check(list(BUNDLE_FILES))

@@ -30,9 +30,9 @@ from ..units import format_quantity as eng
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from ..analysis import Analysis
     from ..netlist import Design
+    from ..polezero import PoleZeroMap
     from ..spec import Spec
     from ..verdict import Verdict
-    from .poles import PoleZeroMap
 
 FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg",
                 "histograms": "histograms.svg", "pulse": "pulse.svg"}
@@ -237,8 +237,8 @@ def build_document(
 ) -> Document:
     """The report's content, independent of the output format."""
     from .. import __version__
+    from ..polezero import corner_estimates, pole_zero_map
     from .bom import bom_rows
-    from .poles import corner_estimates, pole_zero_map
 
     bom = bom if bom is not None else bom_rows(design, analysis, spec)
     pz = pz if pz is not None else pole_zero_map(analysis)
