@@ -35,7 +35,7 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
     from ..verdict import Verdict
 
 FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg",
-                "histograms": "histograms.svg", "pulse": "pulse.svg"}
+                "histograms": "histograms.svg", "pulse": "pulse.svg", "ripple": "ripple.svg"}
 
 SAFETY = (
     "Check every voltage and power rating with margin against the worst case in this "
@@ -315,6 +315,12 @@ def build_document(
         bode_caption += "Circles mark the −3 dB points."
     sections.append(Section("Frequency response", (
         Figure("bode", "Bode plot of the gain", bode_caption),
+        Figure("ripple", "Supply ripple transfer",
+               "Ripple on the supply rail reaching the load, |v_load / v_supply| of the "
+               "nominal stage with the signal source at zero (the rail taken as an AC "
+               "source); the circle marks the ripple frequency where supply rejection is "
+               "judged." + (" Hatched: above the spec's limit there." if spec is not None
+                            and spec.require.supply_rejection_db is not None else "")),
         Figure("impedance", "Input and output impedance",
                "Input impedance (load in place) and output impedance (source "
                "resistance in place, load removed) of the nominal stage."
@@ -338,6 +344,7 @@ def build_document(
     if not pz.stable:
         pz_blocks.append("Warning: a pole lies in the right half-plane: the stage is unstable.")
     sections.append(Section("Poles and zeros", tuple(pz_blocks)))
+    sections.append(_supply_stability_section(analysis, spec, pz))
     if robustness is not None:
         sections.append(_robustness_section(robustness, spec))
     if notes:
@@ -348,6 +355,48 @@ def build_document(
         )))
     sections.append(Section("Safety", (list(SAFETY),), css_class="safety"))
     return Document(title, subtitle, status, ok, tuple(sections))
+
+
+def _supply_stability_section(analysis: Analysis, spec: Spec | None,
+                              pz: PoleZeroMap) -> Section:
+    """Supply rejection, peaking and stability at every condition, and resonant poles."""
+    points = (analysis.nominal, *analysis.corners)
+    rows = []
+    for p in points:
+        rows.append((p.condition.label, f"{p.supply_rejection:.1f} dB",
+                     f"{p.peaking_db:.2f} dB",
+                     fmt(p.peak_freq, "Hz") if p.peaking_db > 0.005 else "—",
+                     "yes" if p.stable else "NO",
+                     fmt(p.swing_mid_vpp, "Vpp") if math.isfinite(p.swing_mid_vpp) else "—",
+                     fmt(p.swing_top_vpp, "Vpp") if math.isfinite(p.swing_top_vpp) else "—"))
+    table = Table(("condition", f"supply rejection at {fmt(analysis.environment.ripple_at, 'Hz')}",
+                   "peaking", "peak at", "stable", "swing at midband", "swing at f_high"),
+                  tuple(rows), numeric=(1, 2, 3, 5, 6))
+    blocks: list = [
+        "Supply rejection is −20·log10|v_load / v_supply| with the rail taken as an AC "
+        "source and the signal source at zero; peaking is the largest |gain| over all "
+        "frequencies above its midband value; stable means every pole of the gain in the "
+        "left half-plane. Each is computed at every condition; the swing is the smaller of "
+        "its values at midband and at the required f_high, where a capacitive load draws "
+        "the most current.",
+        table,
+    ]
+    lo = analysis.f_low if analysis.f_low > 0 else analysis.midband / 1e3
+    hi = analysis.f_high if math.isfinite(analysis.f_high) else analysis.midband * 1e3
+    near = [r for r in pz.poles if r.freq.imag > 0 and r.q > 0.7
+            and lo / 10.0 <= r.magnitude <= hi * 10.0]
+    if near:
+        blocks.append([f"Resonant pole pair at {fmt(r.magnitude, 'Hz')} with Q = {r.q:.2g} "
+                       "(above 0.7, near the passband): expect peaking and ringing there; "
+                       "damp it (an isolating resistor at the output, a base stopper, more "
+                       "standing current) if it matters." for r in near])
+    else:
+        blocks.append("No complex pole pair with Q above 0.7 lies within a decade of the "
+                      "passband.")
+    if not all(p.stable for p in points):
+        bad = ", ".join(p.condition.label for p in points if not p.stable)
+        blocks.append(f"Warning: unstable (a right-half-plane pole) at: {bad}.")
+    return Section("Supply rejection, peaking and stability", tuple(blocks))
 
 
 def _robustness_section(rob, spec: Spec | None) -> Section:
@@ -621,12 +670,13 @@ def render_html(doc: Document, svgs: Mapping[str, str]) -> str:
 
 def figure_svgs(design: Design, analysis: Analysis, spec: Spec | None = None) -> dict[str, str]:
     """SVG text of the three report figures, keyed as in FIGURE_FILES."""
-    from .plots import bode_figure, figure_svg, impedance_figure
+    from .plots import bode_figure, figure_svg, impedance_figure, ripple_figure
 
     return {
         "schematic": schematic_svg(design, analysis),
         "bode": figure_svg(bode_figure(analysis, spec)).decode("utf-8"),
         "impedance": figure_svg(impedance_figure(analysis, spec)).decode("utf-8"),
+        "ripple": figure_svg(ripple_figure(analysis, spec)).decode("utf-8"),
     }
 
 
