@@ -116,6 +116,7 @@ def evaluate(
     source_capacitance: float = 0.0,
     ripple_at: float = 100.0,
     response: bool = True,
+    peak_span: tuple[float, float] | None = None,
 ) -> Figures:
     """Figures for K value sets (rows of r_values, c_values) at every condition.
 
@@ -126,7 +127,9 @@ def evaluate(
     `corner_guess` = (f_low, f_high) of a nearby design: a Monte Carlo); the other
     conditions start from their own value set's nominal corner, which they lie close to.
     Supply rejection at `ripple_at` is taken at every member; peaking and stability
-    (a sweep and a pole computation per member) only with `response`.
+    (a sweep and a pole computation per member) only with `response`; `peak_span`
+    narrows the peaking sweep (the synthesizer's search, where the capacitors are
+    large placeholders, looks above midband only; the final analysis sweeps everything).
     """
     r_values = np.atleast_2d(np.asarray(r_values, dtype=float))
     c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
@@ -183,9 +186,23 @@ def evaluate(
         from .peaking import peaking, stability
 
         fm_all = np.repeat(midband, m)
-        pk = peaking(system, fm_all)
-        peak_db, peak_f = pk.peak_db.reshape(k, m), pk.f_peak.reshape(k, m)
-        stable = stability(system, fm_all).stable.reshape(k, m)
+        st = stability(system, fm_all)
+        stable = st.stable.reshape(k, m)
+        if peak_span is None:
+            pk = peaking(system, fm_all)
+            peak_db, peak_f = pk.peak_db.reshape(k, m), pk.f_peak.reshape(k, m)
+        else:  # a search: sweep only members with a resonant pole pair (Q above 0.6;
+            # a pair peaks by itself from Q = 0.71 on), the rest count as flat
+            peak_db, peak_f = np.zeros(k * m), fm_all.copy()
+            p = st.poles_hz
+            with np.errstate(divide="ignore", invalid="ignore"):
+                q = np.abs(p) / (2.0 * np.abs(p.real))
+            resonant = np.any(np.isfinite(p) & (p.imag != 0) & (q > 0.6), axis=1)
+            idx = np.flatnonzero(resonant)
+            if idx.size:
+                pk = peaking(system.subset(idx), fm_all[idx], peak_span)
+                peak_db[idx], peak_f[idx] = pk.peak_db, pk.f_peak
+            peak_db, peak_f = peak_db.reshape(k, m), peak_f.reshape(k, m)
     return Figures(
         midband=midband,
         gain=gain.reshape(k, m),

@@ -40,15 +40,18 @@ class Stability:
     rhp: np.ndarray  # (B, m) bool
 
 
-def peaking(system: AcSystem, midband: np.ndarray) -> Peaking:
-    """Largest |gain| over SWEEP_LOW..SWEEP_HIGH against |gain(midband)|, for every member."""
+def peaking(system: AcSystem, midband: np.ndarray,
+            span: tuple[float, float] = (SWEEP_LOW, SWEEP_HIGH)) -> Peaking:
+    """Largest |gain| over `span` (default SWEEP_LOW..SWEEP_HIGH: all frequencies that
+    matter) against |gain(midband)|, for every member."""
     fm = np.asarray(midband, dtype=float).reshape(system.batch)
     h_mid = np.abs(system.gain(fm[:, None]))[:, 0]
-    decades = math.log10(SWEEP_HIGH / SWEEP_LOW)
-    grid = np.logspace(math.log10(SWEEP_LOW), math.log10(SWEEP_HIGH),
-                       int(decades * SWEEP_PER_DECADE) + 1)
+    lo, hi = span
+    decades = math.log10(hi / lo)
+    grid = np.logspace(math.log10(lo), math.log10(hi),
+                       max(int(decades * SWEEP_PER_DECADE), 1) + 1)
     lg = np.broadcast_to(np.log10(grid), (system.batch, grid.size))
-    mag = np.abs(system.gain(10.0 ** lg))
+    mag = _sweep(system, 10.0 ** lg)
     step = 1.0 / SWEEP_PER_DECADE
     rows = np.arange(system.batch)
     best = np.argmax(mag, axis=1)
@@ -57,7 +60,7 @@ def peaking(system: AcSystem, midband: np.ndarray) -> Peaking:
     for _ in range(_ZOOMS):
         offs = np.linspace(-step, step, _ZOOM_POINTS)
         lgz = centre[:, None] + offs[None, :]
-        magz = np.abs(system.gain(10.0 ** lgz))
+        magz = _sweep(system, 10.0 ** lgz)
         j = np.argmax(magz, axis=1)
         better = magz[rows, j] > peak
         centre = np.where(better, lgz[rows, j], centre)
@@ -69,6 +72,19 @@ def peaking(system: AcSystem, midband: np.ndarray) -> Peaking:
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = np.where(above, peak / np.maximum(h_mid, 1e-300), 1.0)
     return Peaking(20.0 * np.log10(ratio), f_peak)
+
+
+_CHUNK_ELEMENTS = 4_000_000  # complex matrix entries per batched solve (about 64 MB)
+
+
+def _sweep(system: AcSystem, freqs: np.ndarray) -> np.ndarray:
+    """|gain| at (B, F) frequencies, solved in frequency chunks to bound the memory."""
+    n = system.circuit.n
+    per = max(1, _CHUNK_ELEMENTS // max(system.batch * n * n, 1))
+    if per >= freqs.shape[1]:
+        return np.abs(system.gain(freqs))
+    return np.concatenate([np.abs(system.gain(freqs[:, i:i + per]))
+                           for i in range(0, freqs.shape[1], per)], axis=1)
 
 
 def stability(system: AcSystem, midband: np.ndarray) -> Stability:
