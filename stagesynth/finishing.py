@@ -15,6 +15,10 @@ from .remedies import Candidate, improve_rejection, tame_peaking
 from .spec import Spec
 
 RELAXED_PEAKING_DB = 60.0  # the search's peaking limit when a remedy will damp it
+# a remedy is tried only when every failed requirement is one it can help with (a family
+# that misses its gain or input impedance is not saved by a filter or a damping resistor)
+_FILTER_HELPS = frozenset({"supply_rejection", "peaking", "swing"})
+_DAMPING_HELPS = frozenset({"peaking", "swing", "z_out", "f_high", "supply_rejection"})
 
 
 def _key(verdict) -> tuple[int, float]:
@@ -29,7 +33,7 @@ def finish_family(spec: Spec, family, result, prefer: str, search):
     """
     out = result
     failed = {c.name for c in out.verdict.failed}
-    if "supply_rejection" in failed:
+    if "supply_rejection" in failed and failed <= _FILTER_HELPS:
         def resynth(lower: Spec):
             r = search(lower, family, prefer)
             return r.design, r.analysis
@@ -38,7 +42,8 @@ def finish_family(spec: Spec, family, result, prefer: str, search):
         if cand is not None and _key(cand.verdict) < _key(out.verdict):
             out = adopt(spec, out, cand)
     failed = {c.name for c in out.verdict.failed}
-    if "peaking" in failed or ("swing" in failed and spec.load.capacitance > 0):
+    if ("peaking" in failed or ("swing" in failed and spec.load.capacitance > 0)) and (
+            failed <= _DAMPING_HELPS):
         cands = []
         own = tame_peaking(spec, out.design, out.analysis)
         if own is not None:
