@@ -353,11 +353,12 @@ def test_cable_driver_is_a_low_impedance_buffer(polarity: str) -> None:
 @pytest.mark.parametrize("polarity", POLARITIES)
 def test_piezo_buffer_is_bootstrapped_far_above_its_divider(polarity: str) -> None:
     """The bootstrap (Horowitz & Hill, from memory) lifts z_in far above RTH: here the
-    synthesized buffer's z_in is at least four times its own divider's resistance."""
+    synthesized buffer's z_in is at least three times its own divider's resistance
+    (without the bootstrap it would lie below RTH, which is in parallel with the base)."""
     _, res = synthesized("piezo", polarity)
     v = res.design.values()
     assert res.analysis.z_in >= 1e6
-    assert res.analysis.z_in > 4 * par(v["R1"], v["R2"])
+    assert res.analysis.z_in > 3 * par(v["R1"], v["R2"])
 
 
 @pytest.mark.parametrize("polarity", POLARITIES)
