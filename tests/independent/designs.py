@@ -211,7 +211,7 @@ SPECS: dict[str, dict[str, Any]] = {
         "gain_db": -2.5, "gain_tolerance_db": 1.5, "f_low": 20.0, "f_high": 1e5, "z_in": 1e3,
         "swing": 2.0, "ambient": [-20.0, 70.0]}),
     "ce_npn_ripple": _spec("ce_npn", "Preamp on an unregulated rail", 0.05, {
-        "gain_db": 20.0, "f_low": 20.0, "f_high": 1e5, "swing": 3.0, "supply_rejection": 20.0,
+        "gain_db": 20.5, "f_low": 20.0, "f_high": 1e5, "swing": 3.0, "supply_rejection": 20.0,
         "ripple_at": 120.0}),
     "ef_ideal_ripple": _spec("ef_ideal_source", "Sensor buffer on a shared rail", 0.0, {
         "gain_db": 0.0, "f_low": 20.0, "f_high": 1e5, "swing": 2.0, "supply_rejection": 30.0}),
