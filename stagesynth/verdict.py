@@ -394,12 +394,12 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
             if row.name == "swing":
                 detail += f": {p.swing_limit}"
                 if math.isfinite(p.swing_top_vpp) and p.swing_top_vpp < p.swing_mid_vpp:
-                    detail += (f", at f_high {spec.require.f_high:.4g} Hz (midband "
-                               f"{p.swing_mid_vpp:.3g} Vpp)")
+                    detail += (f", at f_high {eng(spec.require.f_high, 'Hz')} (midband "
+                               f"{eng(p.swing_mid_vpp, 'V')}pp)")
             elif row.name == "peaking":
-                detail += f": peak at {p.peak_freq:.4g} Hz"
+                detail += f": peak at {eng(p.peak_freq, 'Hz')}"
             elif row.name == "supply_rejection":
-                detail += f": at {spec.require.ripple_at:g} Hz"
+                detail += f": at {eng(spec.require.ripple_at, 'Hz')}"
             elif row.name == "stable":
                 detail = "" if bool(row.ok[0]) else detail + ": a pole in the right half-plane"
             elif row.name == "active" and not bool(row.ok[0]):

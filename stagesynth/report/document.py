@@ -386,7 +386,7 @@ def _supply_stability_section(analysis: Analysis, spec: Spec | None,
     near = [r for r in pz.poles if r.freq.imag > 0 and r.q > 0.7
             and lo / 10.0 <= r.magnitude <= hi * 10.0]
     if near:
-        blocks.append([f"Resonant pole pair at {fmt(r.magnitude, 'Hz')} with Q = {r.q:.2g} "
+        blocks.append([f"Resonant pole pair at {fmt(r.magnitude, 'Hz')} with Q = {num(r.q, 2)} "
                        "(above 0.7, near the passband): expect peaking and ringing there; "
                        "damp it (an isolating resistor at the output, a base stopper, more "
                        "standing current) if it matters." for r in near])
