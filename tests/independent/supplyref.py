@@ -34,7 +34,10 @@ class Network:
 
 def network(cir: rm.Circuit, op: rm.OperatingPoint) -> Network:
     """Stamp resistors, capacitors, hybrid-pi transistors, load and source resistance."""
-    names = sorted({n for n in op.voltages if n != cir.ground} | {cir.supply_node})
+    # the source: EMF behind Rs, and Cs in series when given (second release); with Cs the
+    # EMF side of the capacitor is a node of its own, "source EMF node"
+    src = _source_node(cir)
+    names = sorted({n for n in op.voltages if n != cir.ground} | {cir.supply_node, src})
     idx = {n: i for i, n in enumerate(names)}
     n = len(names)
     g, c = np.zeros((n, n)), np.zeros((n, n))
@@ -51,8 +54,10 @@ def network(cir: rm.Circuit, op: rm.OperatingPoint) -> Network:
         two(c, a, b, cv)
     two(g, cir.output, cir.ground, 1.0 / cir.load_resistance)
     two(c, cir.output, cir.ground, cir.load_capacitance)
+    if cir.source_capacitance > 0:
+        two(c, src, cir.input, cir.source_capacitance)
     if cir.source_resistance > 0:
-        two(g, cir.input, cir.ground, 1.0 / cir.source_resistance)
+        two(g, src, cir.ground, 1.0 / cir.source_resistance)
     for q in cir.bjts:
         d = cir.devices[q.device]
         t = op.transistors[q.ref]
@@ -68,6 +73,11 @@ def network(cir: rm.Circuit, op: rm.OperatingPoint) -> Network:
                 if row in idx and col in idx:
                     g[idx[row], idx[col]] += sr * sc * t.gm
     return Network(tuple(names), g, c, cir)
+
+
+def _source_node(cir: rm.Circuit) -> str:
+    """Where the source resistance meets the EMF side: the input, or a node behind Cs."""
+    return "source EMF node" if cir.source_capacitance > 0 else cir.input
 
 
 def _solve(net: Network, freqs: np.ndarray, fixed: Mapping[str, complex],
@@ -92,10 +102,11 @@ def _solve(net: Network, freqs: np.ndarray, fixed: Mapping[str, complex],
 def signal_gain(net: Network, freqs: np.ndarray) -> np.ndarray:
     """v_load / v_emf with the supply at AC ground (contract §2)."""
     cir = net.cir
+    src = _source_node(cir)
     if cir.source_resistance > 0:
-        v = _solve(net, freqs, {cir.supply_node: 0.0}, {cir.input: 1.0 / cir.source_resistance})
+        v = _solve(net, freqs, {cir.supply_node: 0.0}, {src: 1.0 / cir.source_resistance})
     else:
-        v = _solve(net, freqs, {cir.supply_node: 0.0, cir.input: 1.0}, {})
+        v = _solve(net, freqs, {cir.supply_node: 0.0, src: 1.0}, {})
     return v[:, net.index(cir.output)]
 
 
@@ -104,7 +115,7 @@ def supply_transfer(net: Network, freqs: np.ndarray) -> np.ndarray:
     cir = net.cir
     fixed: dict[str, complex] = {cir.supply_node: 1.0}
     if cir.source_resistance <= 0:
-        fixed[cir.input] = 0.0
+        fixed[_source_node(cir)] = 0.0
     v = _solve(net, freqs, fixed, {})
     return v[:, net.index(cir.output)]
 
@@ -139,7 +150,7 @@ def poles_hz(net: Network) -> np.ndarray:
     cir = net.cir
     drop = {net.index(cir.supply_node)}
     if cir.source_resistance <= 0:
-        drop.add(net.index(cir.input))
+        drop.add(net.index(_source_node(cir)))
     keep = [i for i in range(len(net.names)) if i not in drop]
     g = net.g[np.ix_(keep, keep)]
     c = net.c[np.ix_(keep, keep)]
