@@ -5,6 +5,7 @@
   matrices (the ratio is the engine's overhead over the linear algebra itself).
 - DC: solve_dc for one condition and for 1,000 conditions in one batch.
 - analyze(): whole-analysis wall time.
+- peaking sweep and batched poles: time per member (every corner of every candidate).
 - `stagesynth --help`: start-up time (median of 5 subprocess runs) and any heavy
   module (scipy, control, skrf, matplotlib, schemdraw) it imports - there should be none.
 
@@ -166,6 +167,20 @@ def bench_startup() -> None:
     print(f"  heavy modules imported: {', '.join(heavy) if heavy else 'none'}")
 
 
+def bench_response() -> None:
+    """Peaking sweep and batched poles per member (synthesis judges both at every corner)."""
+    from stagesynth.peaking import peaking, stability
+
+    print(f"peaking sweep and stability, {BATCH:,} members (best of 3)")
+    for label, build in STAGES.items():
+        system = analyze(build()).system.subset(np.zeros(BATCH, dtype=int))
+        fm = np.full(BATCH, 1e3)
+        tp = best_of(lambda s=system, f=fm: peaking(s, f), repeat=3)
+        ts = best_of(lambda s=system, f=fm: stability(s, f), repeat=3)
+        print(f"  {label:14s} peaking {tp / BATCH * 1e6:8.1f} us/member   "
+              f"poles {ts / BATCH * 1e6:8.1f} us/member")
+
+
 def main() -> int:
     print(f"numpy {np.__version__}, python {sys.version.split()[0]}, "
           f"{os.cpu_count()} CPU(s)\n")  # fmt: skip
@@ -174,6 +189,8 @@ def main() -> int:
     bench_dc()
     print()
     bench_analyze()
+    print()
+    bench_response()
     print()
     bench_startup()
     return 0

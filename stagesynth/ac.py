@@ -39,6 +39,9 @@ class AcSystem:
     load_resistance: np.ndarray  # (B,)
     load_capacitance: np.ndarray  # (B,)
     source_capacitance: np.ndarray | None = None  # (B,) in series with the EMF; 0: none
+    # the supply node's column of G and C (B, n): how ripple on the rail drives each node
+    g_supply: np.ndarray | None = None
+    c_supply: np.ndarray | None = None
 
     @property
     def batch(self) -> int:
@@ -106,6 +109,34 @@ class AcSystem:
     def gain(self, freqs: np.ndarray) -> np.ndarray:
         """v_load / v_source_emf, (B, F) complex."""
         return self.node_voltages(freqs)[:, :, self.circuit.output]
+
+    def supply_gain(self, freqs: np.ndarray) -> np.ndarray:
+        """v_load / v_supply with the signal EMF at zero (contract: supply rejection), (B, F).
+
+        The rail is an AC source: its column of G + jwC, moved to the right-hand side,
+        drives the loaded stage; the source resistance ties the input to ground (an
+        ideal source holds it there).
+        """
+        if self.g_supply is None or self.c_supply is None:
+            raise ValueError("this linearized system was built without the supply column")
+        f = self._freqs(freqs)
+        y = self._y(f, load=True)
+        w = 2.0 * math.pi * f
+        rhs = -(self.g_supply[:, None, :] + 1j * w[:, :, None] * self.c_supply[:, None, :])
+        i_in = self.circuit.input
+        rs = self.source_resistance
+        out = self.circuit.output
+        ys = self._source_admittance(f)
+        if ys is not None:  # Rs and Cs in series from the input to ground
+            y[:, :, i_in, i_in] += ys
+            return np.linalg.solve(y, rhs[..., None])[..., 0][:, :, out]
+        if np.all(rs > 0):
+            y[:, :, i_in, i_in] += (1.0 / rs)[:, None]
+            return np.linalg.solve(y, rhs[..., None])[..., 0][:, :, out]
+        keep = np.array([k for k in range(self.circuit.n) if k != i_in])
+        y_red = y[:, :, keep[:, None], keep[None, :]]
+        sol = np.linalg.solve(y_red, rhs[:, :, keep][..., None])[..., 0]
+        return sol[:, :, int(np.flatnonzero(keep == out)[0])]
 
     def z_in(self, freqs: np.ndarray) -> np.ndarray:
         """Impedance into the input terminal, load in place, source removed: (B, F)."""
@@ -248,6 +279,8 @@ class AcSystem:
             load_capacitance=self.load_capacitance[idx],
             source_capacitance=None if self.source_capacitance is None
             else self.source_capacitance[idx],
+            g_supply=None if self.g_supply is None else self.g_supply[idx],
+            c_supply=None if self.c_supply is None else self.c_supply[idx],
         )
 
     def _crossing(self, fm: np.ndarray, log_steps: np.ndarray, target: np.ndarray) -> np.ndarray:
@@ -337,6 +370,8 @@ def linearize(
         load_resistance=bc(load_resistance),
         load_capacitance=bc(load_capacitance),
         source_capacitance=bc(source_capacitance),
+        g_supply=G[:, :n, n + 1].copy(),
+        c_supply=C[:, :n, n + 1].copy(),
     )
 
 

@@ -30,6 +30,7 @@ class Environment:
     supply_tolerance: float = 0.0
     band: tuple[float, float] | None = None  # (f_low, f_high) required; midband between
     noise_at: float | None = None  # spot frequency of the noise figures (None: midband)
+    ripple_at: float = 100.0  # Hz, where supply rejection is taken (contract default)
 
     @classmethod
     def for_design(cls, design: Design, spec=None) -> Environment:
@@ -37,7 +38,7 @@ class Environment:
         if spec is not None:
             r = spec.require
             return cls(tuple(r.ambient), spec.supply.tolerance, (r.f_low, r.f_high),
-                       r.noise_at)
+                       r.noise_at, float(getattr(r, "ripple_at", 100.0)))
         cond = design.extra.get("conditions") or {}
         amb = cond.get("ambient") or (T_REF_C, T_REF_C)
         return cls(
@@ -105,6 +106,13 @@ class PointResult:
     noise: float | None = None  # V/√Hz input-referred at the spot frequency
     noise_figure: float | None = None  # dB; None without a source resistance
     noise_rms: float | None = None  # V input-referred over the band
+    # supply and stability (second release): this condition's own figures
+    supply_rejection: float = math.nan  # dB at the environment's ripple_at
+    peaking_db: float = math.nan  # largest |gain| over its midband value, dB
+    peak_freq: float = math.nan  # Hz
+    stable: bool = True  # every pole in the left half-plane
+    swing_mid_vpp: float = math.nan  # swing with the small-signal ratios at midband
+    swing_top_vpp: float = math.nan  # ... at the required f_high (nan without a band)
 
     @property
     def gain_db(self) -> float:
@@ -167,6 +175,21 @@ class Analysis:
     @property
     def noise_rms(self) -> float | None:
         return self.nominal.noise_rms
+    def supply_rejection(self) -> float:
+        """Nominal supply rejection, dB at the environment's ripple_at."""
+        return self.nominal.supply_rejection
+
+    @property
+    def peaking_db(self) -> float:
+        return self.nominal.peaking_db
+
+    @property
+    def stable(self) -> bool:
+        return self.nominal.stable
+
+    @property
+    def stable_everywhere(self) -> bool:
+        return self.nominal.stable and all(c.stable for c in self.corners)
 
     def max_corner(self, attr: str) -> float:
         return max(getattr(c, attr) for c in self.corners)
@@ -286,6 +309,7 @@ def point_results(
                 z_in=float(fig.z_in[k, j]),
                 z_out=float(fig.z_out[k, j]),
                 **_noise_point(fig, k, j),
+                **_response_fields(fig, k, j),
             )
         )
     return results
@@ -299,6 +323,16 @@ def _noise_point(fig: Figures, k: int, j: int) -> dict[str, float | None]:
         arr = getattr(fig, name)
         x = None if arr is None else float(arr[k, j])
         out[name] = x if x is not None and math.isfinite(x) else None
+def _response_fields(fig: Figures, k: int, j: int) -> dict:
+    """Supply rejection, peaking, stability and the two swing figures of one member."""
+    out: dict = {}
+    for name in ("supply_rejection", "peaking_db", "peak_freq", "swing_mid_vpp",
+                 "swing_top_vpp"):
+        arr = getattr(fig, name)
+        if arr is not None:
+            out[name] = float(arr[k, j])
+    if fig.stable is not None:
+        out["stable"] = bool(fig.stable[k, j])
     return out
 
 
@@ -319,6 +353,7 @@ def analyze(design: Design, spec=None, environment: Environment | None = None) -
                    source_capacitance=design.source_capacitance,
         band=env.band,
         noise=NoisePlan(at=env.noise_at),
+        ripple_at=env.ripple_at,
     )
     points = point_results(circuit, conditions, fig)
     return Analysis(

@@ -25,8 +25,8 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
     from .analysis import Analysis
     from .fileio import OutputDir
     from .montecarlo import YieldEstimate
+    from .polezero import PoleZeroMap
     from .pulse import PulseResponse
-    from .report.poles import PoleZeroMap
     from .verdict import Verdict
 
 SEED = 20261201  # default Monte Carlo seed (reproducible runs)
@@ -196,8 +196,8 @@ def _spec_or_none(spec: Any) -> Spec | None:
 def finished_design(design: Design, analysis: Analysis,
                     pz: PoleZeroMap | None = None) -> Design:
     """The design file's content: netlist plus pole/zero map, capacitor stress, robustness."""
+    from .polezero import pole_zero_map, poles_zeros_dict
     from .report.bom import capacitor_stress
-    from .report.poles import pole_zero_map, poles_zeros_dict
     from .stability import robustness
 
     pz = pz if pz is not None else pole_zero_map(analysis)
@@ -210,7 +210,7 @@ def finished_design(design: Design, analysis: Analysis,
 def synthesize(spec: Spec | str | Path | Mapping[str, Any], circuit: str | None = None,
                prefer: str = "margin") -> Result:
     """Design a stage that meets `spec` (the simplest circuit family unless `circuit`)."""
-    from .report.poles import pole_zero_map
+    from .polezero import pole_zero_map
     from .synth import synthesize as _synthesize
     from .topologies import FAMILIES
 

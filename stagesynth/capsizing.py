@@ -113,7 +113,8 @@ def size_capacitors(
     fig = evaluate(circuit, r, c, conds, source_resistance=design.source_resistance,
                    load_resistance=design.load_resistance,
                    load_capacitance=design.load_capacitance,
-                   source_capacitance=design.source_capacitance, band=env.band, corners="none")
+                   source_capacitance=design.source_capacitance, band=env.band, corners="none",
+                   response=False)
     res = shorted_resistances(design, circuit, fig.nominal.G[0])
     share = _shares(res)
     target = f_low * F_LOW_MARGIN
@@ -133,7 +134,7 @@ def size_capacitors(
                      load_resistance=design.load_resistance,
                      load_capacitance=design.load_capacitance,
                    source_capacitance=design.source_capacitance, band=env.band,
-                     corners="low")
+                     corners="low", response=False)
         # worst over nominal and every corner (contract section 2, second release)
         zcache[cap_sets.tobytes()] = np.max(f.z_out[k:], axis=1)  # with the low capacitors
         f_low = np.max(f.f_low, axis=1)

@@ -84,6 +84,14 @@ class Figures:
     noise_output_rms: np.ndarray | None = None  # V at the load over the band
     noise_sources: NoiseSources | None = None  # generators of the K*M members
     noise_band: tuple[np.ndarray, np.ndarray] | None = None  # (K,), (K,) integration band
+    # second release: supply and stability (contract §2), every member; None when not asked
+    supply_rejection: np.ndarray | None = None  # (K, M) dB at ripple_at
+    peaking_db: np.ndarray | None = None  # (K, M) largest |gain| over midband |gain|, dB
+    peak_freq: np.ndarray | None = None  # (K, M) Hz where that largest |gain| lies
+    stable: np.ndarray | None = None  # (K, M) bool: every pole in the left half-plane
+    swing_mid_vpp: np.ndarray | None = None  # (K, M) swing with the ratios at midband
+    swing_top_vpp: np.ndarray | None = None  # (K, M) ... at the required f_high (nan: none)
+    ripple_at: float = 100.0  # Hz, where supply_rejection was taken
 
     @property
     def gain_db(self) -> np.ndarray:
@@ -115,6 +123,9 @@ def evaluate(
     corner_guess: tuple[float, float] | None = None,
     source_capacitance: float = 0.0,
     noise: NoisePlan | None = None,
+    ripple_at: float = 100.0,
+    response: bool = True,
+    peak_span: tuple[float, float] | None = None,
 ) -> Figures:
     """Figures for K value sets (rows of r_values, c_values) at every condition.
 
@@ -125,6 +136,10 @@ def evaluate(
     `corner_guess` = (f_low, f_high) of a nearby design: a Monte Carlo); the other
     conditions start from their own value set's nominal corner, which they lie close to.
     `noise` asks for the noise figures at every condition (noise.py).
+    Supply rejection at `ripple_at` is taken at every member; peaking and stability
+    (a sweep and a pole computation per member) only with `response`; `peak_span`
+    narrows the peaking sweep (the synthesizer's search, where the capacitors are
+    large placeholders, looks above midband only; the final analysis sweeps everything).
     """
     r_values = np.atleast_2d(np.asarray(r_values, dtype=float))
     c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
@@ -155,24 +170,53 @@ def evaluate(
     z_in = np.abs(system.z_in(fm_all[:, None])[:, 0])
     z_out = np.abs(system.z_out(fm_all[:, None])[:, 0])
 
-    # swing at every condition (section 2): cutoff or saturation, whichever comes first
+    # swing at every condition (section 2): cutoff or saturation, whichever comes first,
+    # with the small-signal ratios at midband and at the required f_high (second release)
     ic_ratio, vce_ratio = system.swing_ratios_of(v_mid)
     vce_sat = np.array([q.device.vce_sat for q in circuit.bjts])
     # contract section 2 (second release): active only with VCE >= vce_sat and IC >= 100 nA
     q_active = (dc.vce >= vce_sat) & (dc.ic >= IC_ACTIVE_MIN) & dc.converged[:, None]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        a_cut = np.where(ic_ratio > 0, dc.ic / ic_ratio, np.inf)
-        a_sat = np.where(vce_ratio > 0, (dc.vce - vce_sat) / vce_ratio, np.inf)
-    edges = np.concatenate([a_cut, a_sat], axis=1)  # (K*M, 2nQ)
-    edge = np.argmin(edges, axis=1) if nq else np.zeros(k * m, dtype=int)
     all_active = np.all(q_active, axis=1) & dc.converged
-    swing = np.where(all_active, 2.0 * np.min(edges, axis=1, initial=np.inf), 0.0)
+    swing_mid = _swing(dc, ic_ratio, vce_ratio, vce_sat, all_active)[0]
+    swing_top = np.full(k * m, np.nan)
+    if band is not None and nq:
+        ic_top, vce_top = system.swing_ratios(np.full(k * m, float(band[1])))
+        swing_top = _swing(dc, ic_top, vce_top, vce_sat, all_active)[0]
+        ic_ratio = np.maximum(ic_ratio, ic_top)
+        vce_ratio = np.maximum(vce_ratio, vce_top)
+    swing, a_cut, a_sat, edge = _swing(dc, ic_ratio, vce_ratio, vce_sat, all_active)
     if nq == 0:
         swing = np.zeros(k * m)
     noise_fields = {}
     if noise is not None:
         noise_fields = _noise(circuit, system, dc, r_rep, ambient, source_resistance, noise,
                               band, midband, f_low, f_high, m)
+
+    from .supply import rejection_db
+
+    psrr = rejection_db(system, ripple_at).reshape(k, m)
+    peak_db = peak_f = stable = None
+    if response:
+        from .peaking import peaking, stability
+
+        fm_all = np.repeat(midband, m)
+        st = stability(system, fm_all)
+        stable = st.stable.reshape(k, m)
+        if peak_span is None:
+            pk = peaking(system, fm_all)
+            peak_db, peak_f = pk.peak_db.reshape(k, m), pk.f_peak.reshape(k, m)
+        else:  # a search: sweep only members with a resonant pole pair (Q above 0.6;
+            # a pair peaks by itself from Q = 0.71 on), the rest count as flat
+            peak_db, peak_f = np.zeros(k * m), fm_all.copy()
+            p = st.poles_hz
+            with np.errstate(divide="ignore", invalid="ignore"):
+                q = np.abs(p) / (2.0 * np.abs(p.real))
+            resonant = np.any(np.isfinite(p) & (p.imag != 0) & (q > 0.6), axis=1)
+            idx = np.flatnonzero(resonant)
+            if idx.size:
+                pk = peaking(system.subset(idx), fm_all[idx], peak_span)
+                peak_db[idx], peak_f[idx] = pk.peak_db, pk.f_peak
+            peak_db, peak_f = peak_db.reshape(k, m), peak_f.reshape(k, m)
     return Figures(
         midband=midband,
         gain=gain.reshape(k, m),
@@ -191,7 +235,27 @@ def evaluate(
         a_sat=a_sat.reshape(k, m, nq),
         system=system,
         **noise_fields,
+        supply_rejection=psrr,
+        peaking_db=peak_db,
+        peak_freq=peak_f,
+        stable=stable,
+        swing_mid_vpp=swing_mid.reshape(k, m),
+        swing_top_vpp=swing_top.reshape(k, m),
+        ripple_at=float(ripple_at),
     )
+
+
+def _swing(dc: DcBatch, ic_ratio: np.ndarray, vce_ratio: np.ndarray, vce_sat: np.ndarray,
+           all_active: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(swing Vpp, a_cut, a_sat, limiting edge) per member from the swing ratios."""
+    nq = ic_ratio.shape[1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a_cut = np.where(ic_ratio > 0, dc.ic / ic_ratio, np.inf)
+        a_sat = np.where(vce_ratio > 0, (dc.vce - vce_sat) / vce_ratio, np.inf)
+    edges = np.concatenate([a_cut, a_sat], axis=1)  # (K*M, 2nQ)
+    edge = np.argmin(edges, axis=1) if nq else np.zeros(edges.shape[0], dtype=int)
+    swing = np.where(all_active, 2.0 * np.min(edges, axis=1, initial=np.inf), 0.0)
+    return swing, a_cut, a_sat, edge
 
 
 def _corners(

@@ -7,7 +7,7 @@ the shift v = w + m·u with C·m = b1 removes that derivative. The algebraic par
 (the null space of C: nodes without capacitance, floating capacitor groups) is
 eliminated exactly by a Schur complement, leaving x' = A x + B u, y = C x + D u.
 The poles of A are the finite generalized eigenvalues of (G, −C): the same roots
-as `report.poles`, and the frequency response is the AC analysis' gain.
+as `polezero`, and the frequency response is the AC analysis' gain.
 """
 
 from __future__ import annotations

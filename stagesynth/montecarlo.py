@@ -114,6 +114,8 @@ def _judge_chunk(design, spec, circuit, sample: Sample, ambients, guess) -> tupl
         band=(spec.require.f_low, spec.require.f_high),
         corner_guess=guess,
         noise=plan_for(spec.require),
+        ripple_at=spec.require.ripple_at,
+        response=False,  # yield counts peaking and stability not (contract §2)
     )
     rows = assess(fig, spec, circuit, first_corner=0, ratings=False)
     ok_member = np.all(np.stack([row.ok for row in rows]), axis=0)

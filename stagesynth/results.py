@@ -49,6 +49,19 @@ def point_to_dict(p: PointResult) -> dict[str, Any]:
         },
         "node_voltages": dict(p.node_voltages),
         **_noise_keys(p),
+        **response_dict(p),
+    }
+
+
+def response_dict(p: PointResult) -> dict[str, Any]:
+    """Supply rejection, peaking and stability of one condition (contract §4 keys)."""
+    return {
+        "supply_rejection": _num(p.supply_rejection),
+        "peaking_db": _num(p.peaking_db),
+        "peak_frequency": _num(p.peak_freq),
+        "stable": p.stable,
+        "swing_midband_vpp": _num(p.swing_mid_vpp),
+        "swing_f_high_vpp": _num(p.swing_top_vpp),
     }
 
 
@@ -75,6 +88,11 @@ def analysis_to_dict(analysis: Analysis, verdict: Verdict | None = None) -> dict
         "nominal": point_to_dict(analysis.nominal),
         "corners": [point_to_dict(c) for c in analysis.corners],
         **_noise_keys(analysis.nominal),
+        "supply_rejection": _num(analysis.nominal.supply_rejection),
+        "ripple_at": analysis.environment.ripple_at,
+        "peaking_db": _num(analysis.nominal.peaking_db),
+        "stable": analysis.nominal.stable,
+        "stable_everywhere": analysis.stable_everywhere,
     }
     _add_return_loss(out, analysis)
     if verdict is not None:
@@ -111,4 +129,14 @@ def predicted_block(analysis: Analysis) -> dict[str, Any]:
         "supply_current": analysis.supply_current,
         "supply_current_max": analysis.max_corner("supply_current"),
         **_noise_keys(analysis.nominal),
+        "supply_rejection": _num(analysis.nominal.supply_rejection),
+        "ripple_at": analysis.environment.ripple_at,
+        "peaking_db": _num(analysis.nominal.peaking_db),
+        "stable": analysis.nominal.stable,
+        "supply_rejection_worst": _num(min(
+            (p.supply_rejection for p in (analysis.nominal, *analysis.corners)),
+            default=math.nan)),
+        "peaking_db_worst": _num(max(
+            (p.peaking_db for p in (analysis.nominal, *analysis.corners)), default=math.nan)),
+        "stable_everywhere": analysis.stable_everywhere,
     }

@@ -104,7 +104,7 @@ def spreads(design: Design, spec: Spec) -> tuple[FigureSpread, ...]:
                        load_resistance=design.load_resistance,
                        load_capacitance=design.load_capacitance,
                    source_capacitance=design.source_capacitance, band=env.band,
-                       corner_guess=guess)
+                       corner_guess=guess, response=False)
         guess = (float(fig.f_low[0, 0]), float(fig.f_high[0, 0]))
         vals = {  # one condition per member: column 0
             "gain_db": fig.gain_db[:, 0], "f_low": fig.f_low[:, 0], "f_high": fig.f_high[:, 0],

@@ -98,6 +98,10 @@ class Requirements:
     def wants_noise(self) -> bool:
         """Whether any noise requirement is given."""
         return any(x is not None for x in (self.noise, self.noise_figure_db, self.noise_rms))
+    # supply and stability (second release)
+    supply_rejection_db: float | None = None  # dB at ripple_at, at least
+    ripple_at: float = 100.0  # Hz
+    peaking_db: float = 3.0  # dB, |gain| nowhere more than this above midband
 
     @property
     def gain_db(self) -> float:
@@ -147,6 +151,8 @@ _SECTION_KEYS: dict[str, tuple[str, ...]] = {
         "gain", "gain_tolerance", "f_low", "f_high", "z_in", "swing", "supply_current",
         "ambient", "inverting", "z_out", "yield",
         "return_loss",
+        # supply and stability (second release)
+        "supply_rejection", "ripple_at", "peaking",
     ),
     "parts": ("resistors", "resistor_tolerance", "capacitors", "capacitor_tolerance",
               "resistor_max", "capacitor_max"),
@@ -634,6 +640,7 @@ def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
             raise StageError(f"must lie above 0 and at most 100 %, got "
                              f"{format_quantity(yield_target, '%')}", file=file,
                              key="require.yield", accepted="a share such as '99 %'")
+    supply_rejection, ripple_at, peaking = _supply_and_stability(r, file)
     return Requirements(
         gain=gain,
         f_low=f_low,
@@ -647,6 +654,9 @@ def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
         z_out=_quantity(r, "z_out", p, file, "Ω", ">0", None),
         yield_target=yield_target,
         **_noise_requirements(r, file),
+        supply_rejection_db=supply_rejection,
+        ripple_at=ripple_at,
+        peaking_db=peaking,
     )
 
 
@@ -667,6 +677,26 @@ def _noise_requirements(r: Mapping[str, Any], file: str) -> dict[str, float | No
                              accepted="a noise figure such as '2 dB'")
         out["noise_figure_db"] = nf
     return out
+
+
+def _supply_and_stability(r: Mapping[str, Any], file: str) -> tuple[float | None, float, float]:
+    """(supply_rejection dB or None, ripple_at Hz, peaking dB) from [require]."""
+    rejection = None
+    if "supply_rejection" in r:
+        rejection = parse_db(r["supply_rejection"], key="require.supply_rejection", file=file)
+        if not math.isfinite(rejection):
+            raise StageError(f"must be a finite level, got {r['supply_rejection']!r}", file=file,
+                             key="require.supply_rejection",
+                             accepted="a level in dB such as '40 dB'")
+    ripple_at = _quantity(r, "ripple_at", "require", file, "Hz", ">0", 100.0)
+    peaking = 3.0
+    if "peaking" in r:
+        peaking = parse_db(r["peaking"], key="require.peaking", file=file)
+        if not (math.isfinite(peaking) and peaking >= 0):
+            raise StageError(f"must be 0 dB or more, got {r['peaking']!r}", file=file,
+                             key="require.peaking",
+                             accepted="a level in dB such as '1 dB' (0 dB: no rise at all)")
+    return rejection, ripple_at, peaking
 
 
 def _ambient(value: Any, file: str) -> tuple[float, float]:
@@ -795,6 +825,10 @@ def spec_to_toml(spec: Spec) -> str:
                              "Hz")):
         if value is not None:
             lines.append(f"{key} = {_q(value, unit)}")
+    if r.supply_rejection_db is not None:
+        lines.append(f"supply_rejection = {_q(r.supply_rejection_db, 'dB')}")
+    lines.append(f"ripple_at = {_q(r.ripple_at, 'Hz')}")
+    lines.append(f"peaking = {_q(r.peaking_db, 'dB')}")
     lines += ["", "[transistor]"]
     if d.name:
         lines.append(f"name = {_toml_str(d.name)}")

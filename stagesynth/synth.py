@@ -121,6 +121,10 @@ class _Search:
         big = 50.0 / (2 * math.pi * spec.require.f_low * 10.0)
         self.c_big = np.full(len(self.c_refs), big)
         self.midband = spec.require.midband
+        # peaking above midband only while the capacitors are placeholders, up to ten
+        # times the fastest transistor's ft (the final analysis sweeps everything)
+        ft = max((q.device.ft for q in self.circuit.bjts), default=1e9)
+        self.peak_span = (self.midband, 10.0 * ft)
         self.evaluated = 0
 
     def practical(self, fig: Figures) -> tuple[np.ndarray, np.ndarray]:
@@ -146,7 +150,9 @@ class _Search:
                         load_capacitance=d.load_capacitance,
                         source_capacitance=d.source_capacitance,
                         band=(self.spec.require.f_low, self.spec.require.f_high),
-                        corners="high", noise=plan_for(self.spec.require, SEARCH_NOISE_GRID))
+                        corners="high", noise=plan_for(self.spec.require, SEARCH_NOISE_GRID),
+                        ripple_at=self.spec.require.ripple_at,
+                        peak_span=self.peak_span)
 
     def screen(self, r: np.ndarray, spec: Spec) -> np.ndarray:
         """Indices of the candidates worth judging at every corner.
@@ -167,7 +173,8 @@ class _Search:
                        load_capacitance=d.load_capacitance,
                         source_capacitance=d.source_capacitance,
                        band=(spec.require.f_low, spec.require.f_high), corners="high",
-                       noise=plan_for(spec.require, SEARCH_NOISE_GRID))
+                       noise=plan_for(spec.require, SEARCH_NOISE_GRID),
+                       ripple_at=spec.require.ripple_at, peak_span=self.peak_span)
         self.evaluated += k
         rows = assess(fig, spec, self.circuit, first_corner=0)
         score = smallest_margin(rows, _LF_SKIP)
@@ -439,7 +446,7 @@ def synthesize(
         if circuit not in FAMILIES:
             raise StageError(f"{circuit!r} is not a circuit stagesynth knows",
                              key="--circuit", accepted=", ".join(FAMILIES))
-        result = _synthesize_family(spec, FAMILIES[circuit], prefer)
+        result = _remedied(spec, FAMILIES[circuit], prefer)
         report = _family_report(FAMILIES[circuit], result)
         note = f"Circuit: {FAMILIES[circuit].TITLE}, as asked (--circuit {circuit})."
         return _with_choice(result, (report,), [note])
@@ -463,7 +470,7 @@ def synthesize(
                                         "; ".join(c.best for c in blocked)))
             continue
         try:
-            res = _synthesize_family(spec, family, prefer)
+            res = _remedied(spec, family, prefer)
         except NoDesignError as exc:
             empty.append(exc.message)
             reports.append(FamilyReport(name, family.TITLE, family.STAGES, False, -math.inf,
@@ -503,6 +510,13 @@ def _search_order(spec: Spec) -> list[tuple[str, object]]:
 
     items = list(FAMILIES.items())
     return sorted(items, key=lambda item: hint(item[1]))
+def _remedied(spec: Spec, family, prefer: str) -> SynthesisResult:
+    """One family's search, then the remedies of finishing.py (supply filter, output
+    damping) where the spec asks for what the bare family misses."""
+    from .finishing import finish_family
+
+    return finish_family(spec, family, _synthesize_family(spec, family, prefer), prefer,
+                         _synthesize_family)
 
 
 def _family_report(family, result: SynthesisResult) -> FamilyReport:

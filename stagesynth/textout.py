@@ -130,6 +130,28 @@ def _noise_rows(analysis: Analysis) -> list[list[str]]:
     return rows
 
 
+def supply_stability_rows(analysis: Analysis) -> list[list[str]]:
+    """Supply rejection, peaking and stability: nominal, with the worst condition."""
+    points = (analysis.nominal, *analysis.corners)
+    if not all(math.isfinite(p.supply_rejection) for p in points):
+        return []
+    rows = []
+    worst = min(points, key=lambda p: p.supply_rejection)
+    at = analysis.environment.ripple_at
+    rows.append(["supply rejection", f"{analysis.nominal.supply_rejection:.1f} dB at "
+                 f"{fmt(at, 'Hz')} (worst {worst.supply_rejection:.1f} dB: "
+                 f"{worst.condition.label})"])
+    if all(math.isfinite(p.peaking_db) for p in points):
+        worst = max(points, key=lambda p: p.peaking_db)
+        rows.append(["peaking", f"{analysis.nominal.peaking_db:.2f} dB (worst "
+                     f"{worst.peaking_db:.2f} dB at {fmt(worst.peak_freq, 'Hz')}: "
+                     f"{worst.condition.label})"])
+    bad = [p.condition.label for p in points if not p.stable]
+    rows.append(["stable", "yes, every pole in the left half-plane at every condition"
+                 if not bad else f"NO: right-half-plane pole at {', '.join(bad)}"])
+    return rows
+
+
 def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
     d = analysis.design
     out = [f"{d.title or 'design'}" + (f"  [{d.topology}]" if d.topology else "")]
@@ -149,6 +171,7 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
                   f"{worst.condition.label}, {worst.swing_limit})"],
         *_noise_rows(analysis),
     ]
+    rows += supply_stability_rows(analysis)
     out += _table(["figure", "value"], rows)
     off = [f"{ref} {s.region}" for ref, s in analysis.nominal.transistors.items()
            if s.region != "active"]

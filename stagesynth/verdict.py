@@ -153,6 +153,7 @@ def assess(
                              r.supply_current, "A", "every corner", j + first_corner))
     rows.extend(_range_and_match_rows(fig, spec, first_corner))
     rows.extend(noise_rows(fig, spec, first_corner))
+    rows.extend(supply_stability_rows(fig, spec, first_corner))
     if ratings:
         rows.extend(_rating_rows(fig, circuit, corners))
     return rows
@@ -220,6 +221,44 @@ def noise_rows(fig: Figures, spec: Spec, first_corner: int = 1) -> list[Row]:
                                    ("noise_rms", fig.noise_rms, r.noise_rms, "V")):
         if limit is not None:
             rows.append(_worst_row(_at_most, name, arr[:, judged], limit, unit, judged))
+    return rows
+
+
+def _judged_columns(arr: np.ndarray, first_corner: int) -> tuple[np.ndarray, np.ndarray]:
+    """(K, M') values at nominal and at every corner, and the condition index of each column."""
+    idx = _judged(arr.shape[1], first_corner)
+    return arr[:, idx], idx
+
+
+def supply_stability_rows(fig: Figures, spec: Spec, first_corner: int = 1) -> list[Row]:
+    """Supply rejection (when asked), peaking and stability (always), each judged at
+    nominal and every corner (contract §2, second release): the worst decides."""
+    r = spec.require
+    rows: list[Row] = []
+    where = WORST_WHERE
+    if r.supply_rejection_db is not None and fig.supply_rejection is not None:
+        vals, idx = _judged_columns(fig.supply_rejection, first_corner)
+        j = np.argmin(vals, axis=1)
+        k = np.arange(vals.shape[0])
+        # margin in dB over 20 dB: a 2 dB shortfall reads as -10 % (a level, not a ratio)
+        worst = vals[k, j]
+        ok = worst >= r.supply_rejection_db
+        rows.append(Row("supply_rejection", worst, r.supply_rejection_db, ok,
+                        (worst - r.supply_rejection_db) / 20.0, ">=", "dB", where, idx[j]))
+    if fig.peaking_db is not None:
+        vals, idx = _judged_columns(fig.peaking_db, first_corner)
+        j = np.argmax(vals, axis=1)
+        worst = vals[np.arange(vals.shape[0]), j]
+        ok = worst <= r.peaking_db
+        rows.append(Row("peaking", worst, r.peaking_db, ok,
+                        (r.peaking_db - worst) / max(r.peaking_db, 1.0), "<=", "dB", where,
+                        idx[j]))
+    if fig.stable is not None:
+        vals, idx = _judged_columns(fig.stable, first_corner)
+        stable = np.all(vals, axis=1)
+        j = np.argmin(vals, axis=1)
+        rows.append(Row("stable", stable, True, stable, np.where(stable, 1.0, -1.0), "is", "",
+                        where, idx[j]))
     return rows
 
 
@@ -373,6 +412,15 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
             detail = p.condition.label
             if row.name == "swing":
                 detail += f": {p.swing_limit}"
+                if math.isfinite(p.swing_top_vpp) and p.swing_top_vpp < p.swing_mid_vpp:
+                    detail += (f", at f_high {eng(spec.require.f_high, 'Hz')} (midband "
+                               f"{eng(p.swing_mid_vpp, 'V')}pp)")
+            elif row.name == "peaking":
+                detail += f": peak at {eng(p.peak_freq, 'Hz')}"
+            elif row.name == "supply_rejection":
+                detail += f": at {eng(spec.require.ripple_at, 'Hz')}"
+            elif row.name == "stable":
+                detail = "" if bool(row.ok[0]) else detail + ": a pole in the right half-plane"
             elif row.name == "active" and not bool(row.ok[0]):
                 bad = [ref for ref, s in p.transistors.items() if not s.active]
                 why = f"{', '.join(bad)} out of the active region" if p.converged else (

@@ -22,6 +22,7 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from independent import designs as ds
 from independent import refmodel as rm
+from independent import supplyref as sr
 
 ROOT = Path(__file__).resolve().parents[1]
 GAIN_DB_TOL = 0.05
@@ -119,7 +120,7 @@ def test_scenarios_have_clear_verdicts() -> None:
         _, ok, checks = reference(name)
         verdicts.add(ok)
         for c in checks:
-            if isinstance(c.limit, str) or c.name == "active" or c.limit == 0:
+            if isinstance(c.limit, str) or c.name in ("active", "stable") or c.limit == 0:
                 continue
             if c.name == "gain":
                 tol = ds.SPECS[name]["require"].get("gain_tolerance_db", 1.0)
@@ -248,7 +249,8 @@ def test_corners_agree(runs: Mapping[str, subprocess.CompletedProcess], name: st
 _CHECK_WORDS = {"gain": ("gain",), "f_low": ("f_low", "low"), "f_high": ("f_high", "high"),
                 "z_in": ("z_in",), "z_out": ("z_out",), "swing": ("swing",),
                 "supply_current": ("supply_current", "current"), "active": ("active",),
-                "inverting": ("invert",)}
+                "inverting": ("invert",), "supply_rejection": ("supply_rejection",),
+                "peaking": ("peaking",), "stable": ("stable",)}
 
 
 @pytest.mark.parametrize("name", sorted(ds.SPECS))
@@ -289,3 +291,51 @@ def test_bad_design_file_exit_2_one_line(runs: Mapping[str, subprocess.Completed
     assert msg and "\n" not in msg, msg
     assert "Traceback" not in r.stderr
     assert f"bad_{name}.json" in msg or "design" in msg.lower(), msg
+
+
+# ----------------------------------------------------------------------------- supply, stability
+
+PSRR_DB_TOL = 0.05  # dB, supply rejection: a single linear solve on both sides
+PEAK_DB_TOL = 0.05  # dB, peaking: both refine the maximum of a smooth curve
+
+
+@cache
+def reference_conditions(spec_name: str) -> list[sr.ConditionFigures]:
+    """supplyref's figures at nominal and every corner (contract §2, second release)."""
+    spec = ds.SPECS[spec_name]
+    return sr.every_condition(ds.DESIGNS[spec["design"]], spec)
+
+
+@pytest.mark.parametrize("name", sorted(ds.SPECS))
+def test_supply_rejection_peaking_stability_agree(
+        runs: Mapping[str, subprocess.CompletedProcess], name: str) -> None:
+    # Contract §2 "Supply and stability" and §4 keys: the engine's supply_rejection,
+    # peaking_db and stable, nominal and in every corner entry, against the independent
+    # implementation (tests/independent/supplyref.py).
+    figs = reference_conditions(name)
+    out = _engine(runs, name)
+    design = ds.DESIGNS[ds.SPECS[name]["design"]]
+    devices = sorted(design["devices"])
+    limits = {k: tuple(v["hfe"]) for k, v in design["devices"].items()}
+    an, _, _ = reference(name)
+    keys = [(tuple(h for _, h in c.conditions.hfe), c.conditions.ambient, c.conditions.supply)
+            for c in an.corners]
+    bad = []
+    pairs = [("nominal", out, figs[0])]
+    for ec in out.get("corners") or []:
+        hs, ta, vs = _corner_key(ec, devices, limits)
+        j = [i for i, k in enumerate(keys) if all(
+            math.isclose(a, b, rel_tol=1e-6) for a, b in zip(k[0], hs, strict=True))
+            and abs(k[1] - ta) < 1e-6 and math.isclose(k[2], vs, rel_tol=1e-6)]
+        assert len(j) == 1, f"{name}: corner {hs, ta, vs} not in the reference"
+        pairs.append((f"[hfe={hs} Ta={ta:g} Vs={vs:.4g}]", ec, figs[1 + j[0]]))
+    for tag, eng, ref in pairs:
+        psrr = _num(eng.get("supply_rejection"))
+        if not abs(psrr - ref.supply_rejection) <= PSRR_DB_TOL:
+            bad.append(f"{tag} supply_rejection {psrr:.4f} reference {ref.supply_rejection:.4f}")
+        pk = _num(eng.get("peaking_db"))
+        if not abs(pk - ref.peaking_db) <= PEAK_DB_TOL:
+            bad.append(f"{tag} peaking_db {pk:.4f} reference {ref.peaking_db:.4f}")
+        if eng.get("stable") is not ref.stable:
+            bad.append(f"{tag} stable {eng.get('stable')} reference {ref.stable}")
+    assert not bad, f"{name}: " + "; ".join(bad)

@@ -24,7 +24,7 @@ from test_poles import DESIGNS, _match
 import stagesynth as ss
 from stagesynth.analysis import analyze
 from stagesynth.netlist import Design, Part
-from stagesynth.report.poles import pole_zero_map
+from stagesynth.polezero import pole_zero_map
 
 NAMES = sorted(DESIGNS)
 

@@ -2,7 +2,7 @@
 
 The outside judge is python-control: each stage is turned into an ordinary state-space
 model (descriptor system -> state space by eliminating the algebraic part, done here in
-the test from the engine's nodal matrices, independently of stagesynth.report.poles),
+the test from the engine's nodal matrices, independently of stagesynth.polezero),
 and python-control's own poles, zeros and frequency response are compared with ours.
 """
 
@@ -22,7 +22,7 @@ from independent import designs as ds
 
 from stagesynth.analysis import analyze
 from stagesynth.netlist import Design, design_from_dict
-from stagesynth.report.poles import corner_estimates, pole_zero_map
+from stagesynth.polezero import corner_estimates, pole_zero_map
 
 
 def _designs() -> dict[str, Design]:

@@ -20,14 +20,14 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
     from ..spec import Spec
     from ..verdict import Verdict
 
-PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg")
+PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg", "ripple.svg")
 BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
                 "stage.s2p", "histograms.svg", "pulse.svg", "noise.svg")
 
 
 def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
-    """The four plot files' contents (one figure each for Bode and impedance)."""
-    from .plots import bode_figure, figure_png, figure_svg, impedance_figure
+    """The plot files' contents (one figure each for Bode and impedance)."""
+    from .plots import bode_figure, figure_png, figure_svg, impedance_figure, ripple_figure
 
     bode = bode_figure(analysis, spec)
     imp = impedance_figure(analysis, spec)
@@ -35,6 +35,7 @@ def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
         "bode.svg": figure_svg(bode),
         "bode.png": figure_png(bode),
         "impedance.svg": figure_svg(imp),
+        "ripple.svg": figure_svg(ripple_figure(analysis, spec)),
     }
 
 
@@ -61,9 +62,9 @@ def write_bundle(
     `pz`: the pole/zero map when the caller has it already (it is not computed twice);
     `pulse`: the pulse response to show (default: the engine's, default pulse width).
     """
+    from ..polezero import pole_zero_map
     from .bom import bom_csv, bom_rows
     from .document import report_html, report_markdown, schematic_svg
-    from .poles import pole_zero_map
     from .touchstone import stage_touchstone
 
     out.check(list(BUNDLE_FILES))
@@ -72,6 +73,7 @@ def write_bundle(
         "schematic": schematic_svg(design, analysis),
         "bode": contents["bode.svg"].decode("utf-8"),
         "impedance": contents["impedance.svg"].decode("utf-8"),
+        "ripple": contents["ripple.svg"].decode("utf-8"),
     }
     rows = bom_rows(design, analysis, spec)
     pz = pz if pz is not None else pole_zero_map(analysis)

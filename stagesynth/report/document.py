@@ -30,12 +30,13 @@ from ..units import format_quantity as eng
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from ..analysis import Analysis
     from ..netlist import Design
+    from ..polezero import PoleZeroMap
     from ..spec import Spec
     from ..verdict import Verdict
-    from .poles import PoleZeroMap
 
 FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg",
-                "histograms": "histograms.svg", "pulse": "pulse.svg", "noise": "noise.svg"}
+                "histograms": "histograms.svg", "pulse": "pulse.svg", "noise": "noise.svg",
+                "ripple": "ripple.svg"}
 
 SAFETY = (
     "Check every voltage and power rating with margin against the worst case in this "
@@ -237,8 +238,8 @@ def build_document(
 ) -> Document:
     """The report's content, independent of the output format."""
     from .. import __version__
+    from ..polezero import corner_estimates, pole_zero_map
     from .bom import bom_rows
-    from .poles import corner_estimates, pole_zero_map
 
     bom = bom if bom is not None else bom_rows(design, analysis, spec)
     pz = pz if pz is not None else pole_zero_map(analysis)
@@ -315,6 +316,12 @@ def build_document(
         bode_caption += "Circles mark the −3 dB points."
     sections.append(Section("Frequency response", (
         Figure("bode", "Bode plot of the gain", bode_caption),
+        Figure("ripple", "Supply ripple transfer",
+               "Ripple on the supply rail reaching the load, |v_load / v_supply| of the "
+               "nominal stage with the signal source at zero (the rail taken as an AC "
+               "source); the circle marks the ripple frequency where supply rejection is "
+               "judged." + (" Hatched: above the spec's limit there." if spec is not None
+                            and spec.require.supply_rejection_db is not None else "")),
         Figure("impedance", "Input and output impedance",
                "Input impedance (load in place) and output impedance (source "
                "resistance in place, load removed) of the nominal stage."
@@ -341,6 +348,7 @@ def build_document(
     noise = _noise_section(analysis, spec)
     if noise is not None:
         sections.append(noise)
+    sections.append(_supply_stability_section(analysis, spec, pz))
     if robustness is not None:
         sections.append(_robustness_section(robustness, spec))
     if notes:
@@ -389,6 +397,46 @@ def _noise_section(analysis: Analysis, spec: Spec | None) -> Section | None:
         f"Contributions at {at}, referred to the input (shares of the stage's own noise):",
         Table(("generator", "density", "share"), rows, numeric=(1, 2)),
     ))
+def _supply_stability_section(analysis: Analysis, spec: Spec | None,
+                              pz: PoleZeroMap) -> Section:
+    """Supply rejection, peaking and stability at every condition, and resonant poles."""
+    points = (analysis.nominal, *analysis.corners)
+    rows = []
+    for p in points:
+        rows.append((p.condition.label, f"{p.supply_rejection:.1f} dB",
+                     f"{p.peaking_db:.2f} dB",
+                     fmt(p.peak_freq, "Hz") if p.peaking_db > 0.005 else "—",
+                     "yes" if p.stable else "NO",
+                     fmt(p.swing_mid_vpp, "Vpp") if math.isfinite(p.swing_mid_vpp) else "—",
+                     fmt(p.swing_top_vpp, "Vpp") if math.isfinite(p.swing_top_vpp) else "—"))
+    table = Table(("condition", f"supply rejection at {fmt(analysis.environment.ripple_at, 'Hz')}",
+                   "peaking", "peak at", "stable", "swing at midband", "swing at f_high"),
+                  tuple(rows), numeric=(1, 2, 3, 5, 6))
+    blocks: list = [
+        "Supply rejection is −20·log10|v_load / v_supply| with the rail taken as an AC "
+        "source and the signal source at zero; peaking is the largest |gain| over all "
+        "frequencies above its midband value; stable means every pole of the gain in the "
+        "left half-plane. Each is computed at every condition; the swing is the smaller of "
+        "its values at midband and at the required f_high, where a capacitive load draws "
+        "the most current.",
+        table,
+    ]
+    lo = analysis.f_low if analysis.f_low > 0 else analysis.midband / 1e3
+    hi = analysis.f_high if math.isfinite(analysis.f_high) else analysis.midband * 1e3
+    near = [r for r in pz.poles if r.freq.imag > 0 and r.q > 0.7
+            and lo / 10.0 <= r.magnitude <= hi * 10.0]
+    if near:
+        blocks.append([f"Resonant pole pair at {fmt(r.magnitude, 'Hz')} with Q = {num(r.q, 2)} "
+                       "(above 0.7, near the passband): expect peaking and ringing there; "
+                       "damp it (an isolating resistor at the output, a base stopper, more "
+                       "standing current) if it matters." for r in near])
+    else:
+        blocks.append("No complex pole pair with Q above 0.7 lies within a decade of the "
+                      "passband.")
+    if not all(p.stable for p in points):
+        bad = ", ".join(p.condition.label for p in points if not p.stable)
+        blocks.append(f"Warning: unstable (a right-half-plane pole) at: {bad}.")
+    return Section("Supply rejection, peaking and stability", tuple(blocks))
 
 
 def _robustness_section(rob, spec: Spec | None) -> Section:
@@ -663,13 +711,14 @@ def render_html(doc: Document, svgs: Mapping[str, str]) -> str:
 def figure_svgs(design: Design, analysis: Analysis, spec: Spec | None = None) -> dict[str, str]:
     """SVG text of the three report figures, keyed as in FIGURE_FILES."""
     from .noiseplot import noise_plot
-    from .plots import bode_figure, figure_svg, impedance_figure
+    from .plots import bode_figure, figure_svg, impedance_figure, ripple_figure
 
     return {
         "schematic": schematic_svg(design, analysis),
         "bode": figure_svg(bode_figure(analysis, spec)).decode("utf-8"),
         "impedance": figure_svg(impedance_figure(analysis, spec)).decode("utf-8"),
         "noise": figure_svg(noise_plot(analysis, spec)).decode("utf-8"),
+        "ripple": figure_svg(ripple_figure(analysis, spec)).decode("utf-8"),
     }
 
 

@@ -489,3 +489,59 @@ def histogram_figure(estimate, spec: Spec) -> Figure:
         fig.subplots_adjust(left=0.08, right=0.98, top=0.89, bottom=0.15, hspace=0.62,
                             wspace=0.22)
     return fig
+
+
+# ---------------------------------------------------------------------------
+# Supply ripple transfer (beside the Bode plot)
+# ---------------------------------------------------------------------------
+def ripple_data(analysis: Analysis, spec: Spec | None = None) -> dict[str, np.ndarray]:
+    """The engine's ripple sweep: frequency (Hz) and |v_load / v_supply| (dB), nominal."""
+    from ..supply import ripple_transfer
+
+    lo, hi = plot_range(analysis, spec)
+    f = sweep(min(lo, 1.0), hi)
+    h = ripple_transfer(analysis.system, f)[0]
+    return {"f": f, "ripple_db": 20.0 * np.log10(np.maximum(h, 1e-300))}
+
+
+def ripple_figure(analysis: Analysis, spec: Spec | None = None) -> Figure:
+    """|v_load / v_supply| against frequency, the ripple frequency and the spec's limit."""
+    import matplotlib
+
+    with matplotlib.rc_context(_STYLE):
+        data = ripple_data(analysis, spec)
+        f, db = data["f"], data["ripple_db"]
+        fig = _new_figure(8.6, 4.6)
+        ax = fig.add_subplot(1, 1, 1)
+        at = analysis.environment.ripple_at
+        top = max(float(db.max()), 0.0) + 6.0
+        bottom = max(float(db.min()), float(db.max()) - 80.0) - 6.0
+        if spec is not None and spec.require.supply_rejection_db is not None:
+            lim = -spec.require.supply_rejection_db
+            bottom = min(bottom, lim - 10.0)
+            _forbidden(ax, at / 1.25, at * 1.25, lim, top + 100.0,
+                       f"ripple above −{_num(spec.require.supply_rejection_db, '.0f')} dB "
+                       f"at {eng_label(at, 'Hz')}")
+        _band_lines(ax, _band(analysis, spec), label=True)
+        ax.semilogx(f, db, color=ORANGE, linewidth=2.0, zorder=3,
+                    label="|v_load / v_supply|, nominal (signal source at zero)")
+        rej = analysis.nominal.supply_rejection
+        if math.isfinite(rej):
+            ax.plot([at], [-rej], marker="o", markersize=7, markerfacecolor="white",
+                    markeredgecolor=INK, markeredgewidth=1.5, linestyle="none", zorder=5)
+            ax.annotate(f"{_num(-rej, '.1f')} dB at {eng_label(at, 'Hz')}", xy=(at, -rej),
+                        xytext=(12, 14), textcoords="offset points", fontsize=9.5,
+                        color=INK, bbox=_label_box(), zorder=6)
+        ax.set_xlim(f[0], f[-1])
+        ax.set_ylim(bottom, top)
+        _eng_log_axis(ax.xaxis, "Hz", math.log10(f[-1] / f[0]))
+        _grid(ax)
+        ax.set_xlabel("frequency")
+        ax.set_ylabel("ripple transfer  (dB)")
+        ax.set_title(f"Supply ripple at the load: rejection {_num(rej, '.1f')} dB at "
+                     f"{eng_label(at, 'Hz')}", loc="left")
+        handles, labels = ax.get_legend_handles_labels()
+        fig.legend(handles, labels, loc="lower center", ncols=2, handlelength=2.6,
+                   frameon=False, bbox_to_anchor=(0.5, 0.0))
+        fig.subplots_adjust(left=0.1, right=0.97, top=0.92, bottom=0.25)
+    return fig

@@ -182,12 +182,14 @@ SPECS: dict[str, dict[str, Any]] = {
     "ce_pnp_gain": _spec("ce_pnp", "Tape-head preamp, more gain", 0.0, {
         "gain_db": 24.0, "gain_tolerance_db": 1.0, "f_low": 20.0, "f_high": 2e4, "swing": 2.0}),
     "ef_ok": _spec("ef_npn", "Cable driver buffer", 0.05, {
-        "gain_db": -1.0, "gain_tolerance_db": 1.0, "f_low": 10.0, "f_high": 1e6, "z_in": 10e3,
-        "z_out": 50.0, "swing": 2.0, "ambient": [-20.0, 60.0], "inverting": "no"}),
+        "gain_db": -1.0, "gain_tolerance_db": 1.0, "f_low": 10.0, "f_high": 2e5, "z_in": 10e3,
+        "z_out": 50.0, "swing": 1.8, "ambient": [-20.0, 60.0], "inverting": "no",
+        "peaking": 5.0}),
     "ef_inverting": _spec("ef_npn", "Cable driver, wrong polarity asked", 0.05, {
-        "gain_db": -1.0, "f_low": 10.0, "f_high": 1e6, "swing": 2.0, "inverting": "yes"}),
+        "gain_db": -1.0, "f_low": 10.0, "f_high": 2e5, "swing": 2.0, "inverting": "yes",
+        "peaking": 5.0}),
     "ef_swing": _spec("ef_npn", "Cable driver, big swing", 0.0, {
-        "gain_db": -1.0, "f_low": 10.0, "f_high": 1e6, "swing": 6.0}),
+        "gain_db": -1.0, "f_low": 10.0, "f_high": 1e6, "swing": 6.0, "peaking": 5.0}),
     "ce_ef_ok": _spec("ce_ef_direct", "Strain-gauge amplifier", 0.05, {
         "gain_db": 31.0, "gain_tolerance_db": 1.5, "f_low": 10.0, "f_high": 5e4, "z_in": 3e3,
         "z_out": 100.0, "swing": 4.0, "supply_current": 6e-3, "ambient": [0.0, 70.0],
@@ -203,7 +205,16 @@ SPECS: dict[str, dict[str, Any]] = {
         "swing": 3.0}),
     "ef_hot_ok": _spec("ef_hot", "Line driver", 0.1, {
         "gain_db": -2.5, "gain_tolerance_db": 1.5, "f_low": 20.0, "f_high": 1e5, "z_in": 1e3,
-        "swing": 2.0, "supply_current": 30e-3, "ambient": [-20.0, 70.0]}),
+        "swing": 2.0, "supply_current": 30e-3, "ambient": [-20.0, 70.0],
+        "peaking": 10.0}),
+    "ef_hot_peaking": _spec("ef_hot", "Line driver, flat response asked", 0.1, {
+        "gain_db": -2.5, "gain_tolerance_db": 1.5, "f_low": 20.0, "f_high": 1e5, "z_in": 1e3,
+        "swing": 2.0, "ambient": [-20.0, 70.0]}),
+    "ce_npn_ripple": _spec("ce_npn", "Preamp on an unregulated rail", 0.05, {
+        "gain_db": 20.5, "f_low": 20.0, "f_high": 1e5, "swing": 3.0, "supply_rejection": 20.0,
+        "ripple_at": 120.0}),
+    "ef_ideal_ripple": _spec("ef_ideal_source", "Sensor buffer on a shared rail", 0.0, {
+        "gain_db": 0.0, "f_low": 20.0, "f_high": 1e5, "swing": 2.0, "supply_rejection": 30.0}),
     "ef_ideal_ok": _spec("ef_ideal_source", "Sensor buffer", 0.0, {
         "gain_db": 0.0, "f_low": 20.0, "f_high": 1e5, "z_out": 30.0, "swing": 2.0}),
     "dc_coupled_ok": _spec("ce_dc_coupled", "Thermocouple amplifier", 0.05, {
@@ -291,6 +302,12 @@ def spec_toml(spec: Mapping[str, Any]) -> str:
         out.append(f'ambient = ["{lo:g} °C", "{hi:g} °C"]')
     if "inverting" in req:
         out.append(f'inverting = "{req["inverting"]}"')
+    if "supply_rejection" in req:
+        out.append(f'supply_rejection = "{req["supply_rejection"]:g} dB"')
+    if "ripple_at" in req:
+        out.append(f"ripple_at = {req['ripple_at']!r}")
+    if "peaking" in req:
+        out.append(f'peaking = "{req["peaking"]:g} dB"')
     first = next(p["device"] for p in d["parts"] if p["kind"] == "bjt")
     return "\n".join(out) + "\n\n" + transistor_toml(d["devices"][first])
 

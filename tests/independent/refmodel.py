@@ -806,10 +806,12 @@ def analyze(
     for cond in corner_conditions(cir, ambient, supply_tolerance):
         op = solve_dc(cir, cond, guess=sys_guess)
         active = all(t.active for t in op.transistors.values())
+        # second release: the smaller of the swing at midband and at the required f_high
+        swing = min(swing_vpp(cir, op, fm), swing_vpp(cir, op, band[1])) if active else 0.0
         hc = complex(gain(cir, op, [fm])[0])
         lo_c, hi_c = band_edges(cir, op, fm)
         corners.append(Corner(
-            cond, op, active, swing_vpp(cir, op, fm) if active else 0.0,
+            cond, op, active, swing,
             gain_db=20.0 * math.log10(max(abs(hc), 1e-300)), inverting=bool(hc.real < 0),
             f_low=lo_c, f_high=hi_c, z_in=abs(input_impedance(cir, op, fm)),
             z_out=abs(output_impedance(cir, op, fm)),
@@ -898,5 +900,8 @@ def analyze_spec(design: Mapping[str, Any], spec: Mapping[str, Any]
         ambient=tuple(req.get("ambient", (25.0,))),
         supply_tolerance=float(spec.get("supply", {}).get("tolerance", 0.0)),
     )
-    ok, checks = judge(an, req)
-    return an, ok, checks
+    _, checks = judge(an, req)
+    from . import supplyref  # second release: supply rejection, peaking, stability
+
+    checks = checks + supplyref.checks(design, spec)
+    return an, all(c.ok for c in checks), checks
