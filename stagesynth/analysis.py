@@ -17,6 +17,7 @@ import numpy as np
 from .ac import AcSystem
 from .circuit import Circuit, compile_design
 from .device import T_REF_C
+from .distortion import DistortionRequest
 from .evaluate import IC_ACTIVE_MIN, Conditions, Figures, evaluate
 from .netlist import Design
 
@@ -28,13 +29,17 @@ class Environment:
     ambient: tuple[float, float] = (T_REF_C, T_REF_C)
     supply_tolerance: float = 0.0
     band: tuple[float, float] | None = None  # (f_low, f_high) required; midband between
+    thd_level: float | None = None  # Vpp at which THD is taken (None: half the nominal swing)
+    thd_at: float | None = None  # Hz (None: midband)
 
     @classmethod
     def for_design(cls, design: Design, spec=None) -> Environment:
         """From the spec when given, else from what the design file recorded."""
         if spec is not None:
             r = spec.require
-            return cls(tuple(r.ambient), spec.supply.tolerance, (r.f_low, r.f_high))
+            level = r.thd_level_vpp if r.thd_level_vpp > 0 else None
+            return cls(tuple(r.ambient), spec.supply.tolerance, (r.f_low, r.f_high),
+                       level, r.thd_freq)
         cond = design.extra.get("conditions") or {}
         amb = cond.get("ambient") or (T_REF_C, T_REF_C)
         return cls(
@@ -107,6 +112,9 @@ class PointResult:
     @property
     def inverting(self) -> bool:
         return math.cos(np.angle(self.gain)) < 0.0
+    thd: float | None = None  # total harmonic distortion at the load (ratio), harmonic balance
+    hd2: float | None = None
+    hd3: float | None = None
 
 
 @dataclass(frozen=True)
@@ -148,6 +156,23 @@ class Analysis:
     @property
     def all_active(self) -> bool:
         return all(c.active for c in self.corners)
+
+    @property
+    def thd(self) -> float | None:
+        """THD at the load at nominal (harmonic balance), at `thd_level`."""
+        return self.nominal.thd
+
+    @property
+    def thd_level(self) -> float | None:
+        """Output level (Vpp) of the distortion figures."""
+        fig = self.figures
+        return None if fig is None or fig.thd_level is None else float(fig.thd_level[0])
+
+    @property
+    def thd_at(self) -> float | None:
+        """Frequency (Hz) of the distortion figures."""
+        fig = self.figures
+        return None if fig is None or fig.thd_freq is None else float(fig.thd_freq[0])
 
     def max_corner(self, attr: str) -> float:
         return max(getattr(c, attr) for c in self.corners)
@@ -266,9 +291,19 @@ def point_results(
                 f_high=float(fig.f_high[k, j]),
                 z_in=float(fig.z_in[k, j]),
                 z_out=float(fig.z_out[k, j]),
+                thd=_ratio(fig.thd, k, j),
+                hd2=_ratio(fig.hd2, k, j),
+                hd3=_ratio(fig.hd3, k, j),
             )
         )
     return results
+
+
+def _ratio(arr: np.ndarray | None, k: int, j: int) -> float | None:
+    """One distortion figure as a float; None where not computed or not defined."""
+    if arr is None or not np.isfinite(arr[k, j]):
+        return None
+    return float(arr[k, j])
 
 
 def analyze(design: Design, spec=None, environment: Environment | None = None) -> Analysis:
@@ -287,6 +322,7 @@ def analyze(design: Design, spec=None, environment: Environment | None = None) -
         load_capacitance=design.load_capacitance,
                    source_capacitance=design.source_capacitance,
         band=env.band,
+        distortion=DistortionRequest(env.thd_level, env.thd_at, "hb"),
     )
     points = point_results(circuit, conditions, fig)
     return Analysis(

@@ -17,6 +17,7 @@ import numpy as np
 from .ac import AcSystem, linearize
 from .circuit import Circuit
 from .dc import DcBatch, solve_dc
+from .distortion import DistortionRequest, distortion_figures
 
 IC_ACTIVE_MIN = 100e-9  # A: below this collector current a transistor counts as cut off
 
@@ -76,6 +77,13 @@ class Figures:
     a_cut: np.ndarray  # (K, M, nQ) peak load amplitude to cutoff
     a_sat: np.ndarray  # (K, M, nQ) peak load amplitude to VCE = vce_sat
     system: AcSystem | None = None  # all K*M linearized members, ordered k*M + m
+    # distortion (when asked): (K, M) ratios at the load; level (Vpp) and frequency (K,)
+    thd: np.ndarray | None = None
+    hd2: np.ndarray | None = None
+    hd3: np.ndarray | None = None
+    thd_level: np.ndarray | None = None
+    thd_freq: np.ndarray | None = None
+    thd_method: str = ""
 
     @property
     def gain_db(self) -> np.ndarray:
@@ -106,6 +114,7 @@ def evaluate(
     corners: str = "both",
     corner_guess: tuple[float, float] | None = None,
     source_capacitance: float = 0.0,
+    distortion: DistortionRequest | None = None,
 ) -> Figures:
     """Figures for K value sets (rows of r_values, c_values) at every condition.
 
@@ -115,6 +124,7 @@ def evaluate(
     need only one. The nominal members are searched outward from midband (or near
     `corner_guess` = (f_low, f_high) of a nearby design: a Monte Carlo); the other
     conditions start from their own value set's nominal corner, which they lie close to.
+    `distortion` asks for THD, HD2 and HD3 at every member (harmonic balance or estimate).
     """
     r_values = np.atleast_2d(np.asarray(r_values, dtype=float))
     c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
@@ -159,6 +169,13 @@ def evaluate(
     swing = np.where(all_active, 2.0 * np.min(edges, axis=1, initial=np.inf), 0.0)
     if nq == 0:
         swing = np.zeros(k * m)
+    dist = None
+    if distortion is not None:
+        dist = distortion_figures(
+            circuit, dc, system, r_rep, c_rep, distortion, k=k, m=m, midband=midband,
+            nominal_swing=swing.reshape(k, m)[:, 0], active=all_active,
+            source_resistance=source_resistance, load_resistance=load_resistance,
+            load_capacitance=load_capacitance)
     return Figures(
         midband=midband,
         gain=gain.reshape(k, m),
@@ -176,6 +193,12 @@ def evaluate(
         a_cut=a_cut.reshape(k, m, nq),
         a_sat=a_sat.reshape(k, m, nq),
         system=system,
+        thd=None if dist is None else dist.thd,
+        hd2=None if dist is None else dist.hd2,
+        hd3=None if dist is None else dist.hd3,
+        thd_level=None if dist is None else dist.level_vpp,
+        thd_freq=None if dist is None else dist.freq,
+        thd_method="" if dist is None else dist.method,
     )
 
 

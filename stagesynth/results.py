@@ -48,6 +48,9 @@ def point_to_dict(p: PointResult) -> dict[str, Any]:
             for ref, s in p.transistors.items()
         },
         "node_voltages": dict(p.node_voltages),
+        "thd": p.thd,
+        "hd2": p.hd2,
+        "hd3": p.hd3,
     }
 
 
@@ -65,6 +68,7 @@ def analysis_to_dict(analysis: Analysis, verdict: Verdict | None = None) -> dict
         "midband": analysis.midband,
         "gain_phase_deg": math.degrees(math.atan2(analysis.gain.imag, analysis.gain.real)),
         "converged": analysis.converged,
+        **distortion_keys(analysis),
         "nominal": point_to_dict(analysis.nominal),
         "corners": [point_to_dict(c) for c in analysis.corners],
     }
@@ -90,6 +94,17 @@ def _add_return_loss(out: dict[str, Any], analysis: Analysis) -> None:
         entry["return_loss"] = _num(value)
 
 
+def distortion_keys(analysis: Analysis) -> dict[str, Any]:
+    """thd, hd2, hd3 at nominal (ratios; None where undefined) and where they were taken."""
+    return {
+        "thd": analysis.nominal.thd,
+        "hd2": analysis.nominal.hd2,
+        "hd3": analysis.nominal.hd3,
+        "thd_level_vpp": analysis.thd_level,
+        "thd_at": analysis.thd_at,
+    }
+
+
 def predicted_block(analysis: Analysis) -> dict[str, Any]:
     """The design file's `predicted` figures (section 3), from the engine's analysis."""
     return {
@@ -102,4 +117,12 @@ def predicted_block(analysis: Analysis) -> dict[str, Any]:
         "swing_vpp": analysis.swing_vpp,
         "supply_current": analysis.supply_current,
         "supply_current_max": analysis.max_corner("supply_current"),
+        **distortion_keys(analysis),
+        "thd_max": _worst(c.thd for c in analysis.corners),
     }
+
+
+def _worst(values) -> float | None:
+    """The largest of the defined values (None when none is)."""
+    vals = [v for v in values if v is not None]
+    return max(vals) if vals else None

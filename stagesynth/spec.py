@@ -41,6 +41,7 @@ from .units import (
     parse_quantity,
     parse_swing,
     parse_temperature,
+    parse_thd,
 )
 
 
@@ -82,6 +83,11 @@ class Requirements:
     z_in_max: float | None = None  # ohm: z_in written as a range [z_in, z_in_max]
     z_out_min: float | None = None  # ohm: z_out written as a range [z_out_min, z_out]
     return_loss: float | None = None  # dB, at least, over f_low..f_high
+    # distortion (second release): THD at the load at most `thd` (a ratio), at an output
+    # level `thd_level` (Vpp; None: the required swing) and frequency `thd_at` (None: midband)
+    thd: float | None = None
+    thd_level: float | None = None
+    thd_at: float | None = None
 
     @property
     def gain_db(self) -> float:
@@ -91,6 +97,16 @@ class Requirements:
     def midband(self) -> float:
         """Geometric mean of the required corners: where midband figures are taken."""
         return math.sqrt(self.f_low * self.f_high)
+
+    @property
+    def thd_level_vpp(self) -> float:
+        """Output level (Vpp) at which THD is judged: thd_level, else the required swing."""
+        return self.thd_level if self.thd_level is not None else self.swing_vpp
+
+    @property
+    def thd_freq(self) -> float:
+        """Frequency at which THD is judged: thd_at, else midband."""
+        return self.thd_at if self.thd_at is not None else self.midband
 
 
 @dataclass(frozen=True)
@@ -129,6 +145,7 @@ _SECTION_KEYS: dict[str, tuple[str, ...]] = {
         "gain", "gain_tolerance", "f_low", "f_high", "z_in", "swing", "supply_current",
         "ambient", "inverting", "z_out", "yield",
         "return_loss",
+        "thd", "thd_level", "thd_at",
     ),
     "parts": ("resistors", "resistor_tolerance", "capacitors", "capacitor_tolerance"),
 }
@@ -605,6 +622,7 @@ def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
             raise StageError(f"must lie above 0 and at most 100 %, got "
                              f"{format_quantity(yield_target, '%')}", file=file,
                              key="require.yield", accepted="a share such as '99 %'")
+    thd, thd_level, thd_at = _distortion(r, file, swing)
     return Requirements(
         gain=gain,
         f_low=f_low,
@@ -617,7 +635,28 @@ def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
         inverting=inverting,
         z_out=_quantity(r, "z_out", p, file, "Ω", ">0", None),
         yield_target=yield_target,
+        thd=thd,
+        thd_level=thd_level,
+        thd_at=thd_at,
     )
+
+
+def _distortion(r: Mapping[str, Any], file: str,
+                swing: float) -> tuple[float | None, float | None, float | None]:
+    """thd (a ratio), thd_level (Vpp) and thd_at (Hz), validated (None where absent)."""
+    thd = parse_thd(r["thd"], key="require.thd", file=file) if "thd" in r else None
+    level = None
+    if "thd_level" in r:
+        level = parse_swing(r["thd_level"], key="require.thd_level", file=file)
+        if level <= 0:
+            raise StageError(f"must be greater than zero, got {level:g} Vpp", file=file,
+                             key="require.thd_level", accepted="an output level such as '2 Vpp'")
+    if thd is not None and level is None and swing <= 0:
+        raise StageError("thd needs an output level: neither thd_level nor swing is given",
+                         file=file, key="require.thd",
+                         accepted='thd_level = "2 Vpp" (or swing = "2 Vpp") beside thd')
+    at = _quantity(r, "thd_at", "require", file, "Hz", ">0", None)
+    return thd, level, at
 
 
 def _ambient(value: Any, file: str) -> tuple[float, float]:
@@ -721,6 +760,12 @@ def spec_to_toml(spec: Spec) -> str:
         lines.append(f"z_out = {_q(r.z_out, 'Ω')}")
     if r.yield_target is not None:
         lines.append(f"yield = {_q(r.yield_target, '%')}")
+    if r.thd is not None:
+        lines.append(f"thd = {_q(r.thd, '%')}")
+    if r.thd_level is not None:
+        lines.append(f"thd_level = {_q(r.thd_level, 'Vpp')}")
+    if r.thd_at is not None:
+        lines.append(f"thd_at = {_q(r.thd_at, 'Hz')}")
     lines += ["", "[transistor]"]
     if d.name:
         lines.append(f"name = {_toml_str(d.name)}")
