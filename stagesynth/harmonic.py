@@ -280,32 +280,42 @@ class LargeSignal:
         j[:, :, 2] = (red["jemf"] * emf[:, None]).imag
         return j
 
-    def newton(self, red, lin, x, emf, h, max_iter: int = 60):
-        """Damped Newton at EMF amplitudes emf (B,) from x (B, P, 2H+1): (x, converged)."""
+    def newton(self, red, lin, x, emf, h, max_iter: int = 60, target=None):
+        """Damped Newton at EMF amplitudes emf (B,) from x (B, P, 2H+1): (x, converged, emf).
+
+        With `target` (B,) the EMF is an unknown too, bordered by the equation
+        |V_load,1| = target: one Newton solve finds the drive and the waveform together.
+        """
         gamma, phi, _ = _transforms(h)
         nq = self.term.shape[0]
         d = self.P * (2 * h + 1)
-        src = self._source(red, emf, h)
+        unit = self._source(red, np.ones(self.B), h)
+        unit[:, :, 0] = 0.0  # the EMF's own columns (harmonic 1 only)
+        sup = self._source(red, np.zeros(self.B), h)
         x = x.copy()
+        emf = np.asarray(emf, dtype=float).copy()
         conv = np.zeros(self.B, dtype=bool)
         s = self.sign
+        border = target is not None
+        row = red["out"][:, 1]  # (B, P+2): the load's fundamental from the ports
         for _ in range(max_iter):
             todo = np.flatnonzero(~conv)
             if todo.size == 0:
                 break
+            b = todo.size
             xs = x[todo]
             v = xs @ phi.T  # (b, P, N)
-            sub = self if todo.size == self.B else self.subset(todo)
+            sub = self if b == self.B else self.subset(todo)
             ic, ib, _, _, gm, go = sub.device_currents(v)
             inj = np.zeros_like(v)
-            jac = lin[todo].reshape(todo.size, self.P, 2 * h + 1, self.P, 2 * h + 1).copy()
+            jac = lin[todo].reshape(b, self.P, 2 * h + 1, self.P, 2 * h + 1).copy()
             hf = sub.hfe[:, :, None]
             mgm = (gamma * gm[:, :, None, :]) @ phi  # Γ·diag(gm(t))·Φ per transistor
             mgo = (gamma * go[:, :, None, :]) @ phi
             for q in range(nq):
                 tc, tb, te = self.term[q]
                 cur = (ic[:, q], ib[:, q], -(ic[:, q] + ib[:, q]))
-                scale = (np.ones(todo.size), 1.0 / hf[:, q, 0], -(1.0 + 1.0 / hf[:, q, 0]))
+                scale = (np.ones(b), 1.0 / hf[:, q, 0], -(1.0 + 1.0 / hf[:, q, 0]))
                 for t, i_t, sc in zip((tc, tb, te), cur, scale, strict=True):
                     if t < 0:
                         continue
@@ -317,39 +327,62 @@ class LargeSignal:
                         jac[:, t, :, te] -= a * (mgm[:, q] + mgo[:, q])
                     if tc >= 0:
                         jac[:, t, :, tc] += a * mgo[:, q]
-            f = np.einsum("bij,bj->bi", lin[todo], xs.reshape(todo.size, d)) + (
-                inj @ gamma.T).reshape(todo.size, d) - src[todo].reshape(todo.size, d)
+            e = emf[todo]
+            f = np.einsum("bij,bj->bi", lin[todo], xs.reshape(b, d)) + (
+                inj @ gamma.T).reshape(b, d) - (sup[todo] + unit[todo] * e[:, None, None]
+                                               ).reshape(b, d)
+            jac = jac.reshape(b, d, d)
+            if border:
+                r = row[todo]
+                v1 = -np.einsum("bp,bp->b", r[:, :self.P], xs[:, :, 1] + 1j * xs[:, :, 2]) + (
+                    r[:, self.P + 1] * e)
+                amp = target[todo]
+                big = np.zeros((b, d + 1, d + 1))
+                big[:, :d, :d] = jac
+                big[:, :d, d] = -unit[todo].reshape(b, d)
+                g_re = np.zeros((b, self.P, 2 * h + 1))
+                g_re[:, :, 1] = np.real(np.conj(v1)[:, None] * -r[:, :self.P])
+                g_re[:, :, 2] = np.real(np.conj(v1)[:, None] * -1j * r[:, :self.P])
+                big[:, d, :d] = g_re.reshape(b, d) / amp[:, None]
+                big[:, d, d] = np.real(np.conj(v1) * r[:, self.P + 1]) / amp
+                f = np.concatenate([f, ((np.abs(v1) ** 2 - amp**2) / (2 * amp))[:, None]], 1)
+                jac = big
             try:
-                dx = -np.linalg.solve(jac.reshape(todo.size, d, d), f[..., None])[..., 0]
+                dx = -np.linalg.solve(jac, f[..., None])[..., 0]
             except np.linalg.LinAlgError:
-                dx = -np.einsum("bij,bj->bi", np.linalg.pinv(jac.reshape(todo.size, d, d)), f)
-            dx = dx.reshape(todo.size, self.P, 2 * h + 1)
+                dx = -np.einsum("bij,bj->bi", np.linalg.pinv(jac), f)
+            de = dx[:, d] if border else np.zeros(b)
+            dx = dx[:, :d].reshape(b, self.P, 2 * h + 1)
             # junction limiting: no sample of any VBE rises by more than STEP_LIMIT
             dv = dx @ phi.T
             zero = np.zeros_like(dv[:, 0])
-            rise = np.zeros(todo.size)
+            rise = np.zeros(b)
             for q in range(nq):
                 _, tb, te = self.term[q]
                 db = dv[:, tb] if tb >= 0 else zero
-                de = dv[:, te] if te >= 0 else zero
-                rise = np.maximum(rise, np.max(s[q] * (db - de), axis=1))
+                dee = dv[:, te] if te >= 0 else zero
+                rise = np.maximum(rise, np.max(s[q] * (db - dee), axis=1))
             alpha = np.minimum(1.0, STEP_LIMIT / np.maximum(rise, 1e-30))
             step = alpha[:, None, None] * dx
-            bad = ~np.all(np.isfinite(step), axis=(1, 2))
+            bad = ~(np.all(np.isfinite(step), axis=(1, 2)) & np.isfinite(de))
             step[bad] = 0.0
             x[todo] = xs + step
+            if border:
+                emf[todo] = np.where(bad, e, np.clip(e + alpha * de, 0.5 * e, 2.0 * e))
             done = (alpha >= 1.0) & (np.max(np.abs(step), axis=(1, 2)) < VTOL + 1e-9 * np.max(
                 np.abs(xs[:, :, 1:]), axis=(1, 2))) & ~bad
+            if border:
+                done &= np.abs(f[:, d]) < 1e-9 * target[todo]
             conv[todo[done]] = True
-        return x, conv
+        return x, conv, emf
 
-    def linear_gain(self, red, h: int) -> np.ndarray:
-        """|V_load,1| per volt of EMF with each transistor at its tangent (small signal)."""
+    def linear_gain(self, red, h: int) -> tuple[np.ndarray, np.ndarray]:
+        """(|V_load,1| per volt of EMF, port response per volt (B, P, 2H+1)) with every
+        transistor at its tangent: one Newton step from the operating point."""
         x0 = self.start(h)
-        # one Newton step from the operating point with a tiny drive is the linear response
         tiny = np.full(self.B, 1e-6)
-        x1, _ = self.newton(red, self._system(red, h), x0, tiny, h, max_iter=1)
-        return np.abs(self.load_phasors(red, x1, tiny)[:, 1]) / 1e-6
+        x1, _, _ = self.newton(red, self._system(red, h), x0, tiny, h, max_iter=1)
+        return np.abs(self.load_phasors(red, x1, tiny)[:, 1]) / 1e-6, (x1 - x0) / 1e-6
 
     def start(self, h: int) -> np.ndarray:
         x = np.zeros((self.B, self.P, 2 * h + 1))
@@ -416,7 +449,7 @@ def solve_periodic(
 
 def _stepped(model, red, lin, x, emf, h):
     """Newton at `emf`; members that fail are source-stepped from the operating point."""
-    x1, conv = model.newton(red, lin, x, emf, h)
+    x1, conv, _ = model.newton(red, lin, x, emf, h)
     if np.all(conv):
         return x1, conv
     bad = np.flatnonzero(~conv)
@@ -425,7 +458,7 @@ def _stepped(model, red, lin, x, emf, h):
     xs = sub.start(h)
     ok = np.ones(bad.size, dtype=bool)
     for frac in (0.1, 0.25, 0.4, 0.55, 0.7, 0.85, 1.0):
-        xs, ok = sub.newton(red_s, lin[bad], xs, emf[bad] * frac, h, max_iter=100)
+        xs, ok, _ = sub.newton(red_s, lin[bad], xs, emf[bad] * frac, h, max_iter=100)
     x1[bad] = xs
     conv[bad] = ok
     return x1, conv
@@ -433,8 +466,25 @@ def _stepped(model, red, lin, x, emf, h):
 
 def _secant(model, red, lin, x, target, h):
     """EMF amplitudes giving fundamental `target` (peak) at the load: secant on |V1|."""
-    g0 = model.linear_gain(red, h)
+    g0, per_volt = model.linear_gain(red, h)
     e = target / np.maximum(g0, 1e-30)
+    # first the bordered Newton (drive and waveform together) from the linear response at
+    # that drive (at zero drive the level equation has no gradient); the secant with
+    # source stepping takes over for members where that fails
+    start = x + per_volt * e[:, None, None] if np.allclose(x[..., 1:], 0.0) else x
+    xb, okb, eb = model.newton(red, lin, start, e, h, max_iter=40, target=target)
+    if np.all(okb):
+        return eb, xb, okb
+    bad = np.flatnonzero(~okb)
+    sub = model.subset(bad)
+    red_s = {k: v[bad] for k, v in red.items()}
+    e_s, x_s, ok_s = _secant_plain(sub, red_s, lin[bad], x[bad], target[bad], h, e[bad])
+    eb[bad], xb[bad], okb[bad] = e_s, x_s, ok_s
+    return eb, xb, okb
+
+
+def _secant_plain(model, red, lin, x, target, h, e):
+    """The fallback: Newton with source stepping at fixed drives, secant on the drive."""
     x, conv = _stepped(model, red, lin, x, e, h)
     a = np.abs(model.load_phasors(red, x, e)[:, 1])
     e_prev, a_prev = np.zeros_like(e), np.zeros_like(a)
