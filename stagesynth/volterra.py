@@ -41,9 +41,10 @@ def _admittance(system: AcSystem, freqs: np.ndarray) -> np.ndarray:
 
 
 def series(system: AcSystem, dc: DcBatch, freq: np.ndarray | float,
-           order: int = ORDER) -> np.ndarray:
+           order: int = ORDER, *, early: bool = True) -> np.ndarray:
     """Load voltage per power of the EMF: A (B, order+1, order+1), A[:, n, k] the E^n
-    coefficient of harmonic k (peak phasor, EMF = E·cos ωt)."""
+    coefficient of harmonic k (peak phasor, EMF = E·cos ωt). `early=False` leaves out
+    the Early effect's nonlinear part (to tell how much ro contributes)."""
     b = system.batch
     circ = system.circuit
     nn = circ.n
@@ -75,7 +76,9 @@ def series(system: AcSystem, dc: DcBatch, freq: np.ndarray | float,
         if n >= 2:
             # e_n with x_n = 0: exactly the nonlinear part of the order-n current
             e_n = sum(k * xs[k] * es[n - k] for k in range(1, n)) / n
-            cur = ic * e_n + (i0 / va) * sum(cs[j] * es[n - j] for j in range(1, n))
+            cur = ic * e_n
+            if early:
+                cur = cur + (i0 / va) * sum(cs[j] * es[n - j] for j in range(1, n))
             spec = cur @ basis.conj().T / ns  # (B, nQ, K)
             spec[..., 1:] *= 2.0
             rhs = np.zeros((b, kmax, nn + 2), dtype=complex)
@@ -101,13 +104,13 @@ def series(system: AcSystem, dc: DcBatch, freq: np.ndarray | float,
 
 def harmonics(
     system: AcSystem, dc: DcBatch, freq: np.ndarray | float, level: np.ndarray | float,
-    order: int = ORDER,
+    order: int = ORDER, *, early: bool = True,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """(HD2, HD3, THD, EMF) at the load for a peak fundamental `level` (V), (B,) each.
 
     The EMF is the root of |Σ E^n A[n, 1]| = level (Newton from the linear value).
     """
-    a = series(system, dc, freq, order)
+    a = series(system, dc, freq, order, early=early)
     b = a.shape[0]
     lev = np.broadcast_to(np.asarray(level, dtype=float), (b,)).copy()
     powers = np.arange(order + 1)
