@@ -413,13 +413,14 @@ def solve_periodic(
     level: np.ndarray | float | None = None,
     emf: np.ndarray | float | None = None,
     harmonics: int = H_START,
+    h_max: int = H_MAX,
 ) -> Periodic:
     """Steady state at a peak output `level` (V, fundamental at the load) or a given `emf`.
 
     `level`: the EMF is found by a secant search on |V_load,1| (to 1e-6 relative).
     Robustness: each solve starts from the nearest solved drive; a member whose Newton
     fails is retried by source stepping from the operating point. The harmonic count
-    starts at `harmonics` and doubles (to H_MAX) until the top quarter of the load
+    starts at `harmonics` and doubles (to `h_max`) until the top quarter of the load
     spectrum is below TAIL_REL of the distortion (the convergence test).
     """
     b = model.B
@@ -441,7 +442,7 @@ def solve_periodic(
         tail = np.sqrt(np.sum(mag[:, top + 1:] ** 2, axis=1))
         dist = np.sqrt(np.sum(mag[:, 2:min(10, h) + 1] ** 2, axis=1))
         ok_tail = tail <= TAIL_REL * dist + 1e-12 * mag[:, 1]
-        if np.all(ok_tail | ~conv) or 2 * h > H_MAX:
+        if np.all(ok_tail | ~conv) or 2 * h > h_max:
             return Periodic(freq, e, load, x, conv & ok_tail, h, model)
         x = _resize(x, 2 * h)
         h *= 2
