@@ -17,6 +17,7 @@ import numpy as np
 from .ac import AcSystem
 from .circuit import Circuit, compile_design
 from .device import T_REF_C
+from .distortion import DistortionRequest
 from .evaluate import IC_ACTIVE_MIN, Conditions, Figures, evaluate
 from .netlist import Design
 from .noise import NoisePlan
@@ -31,14 +32,18 @@ class Environment:
     band: tuple[float, float] | None = None  # (f_low, f_high) required; midband between
     noise_at: float | None = None  # spot frequency of the noise figures (None: midband)
     ripple_at: float = 100.0  # Hz, where supply rejection is taken (contract default)
+    thd_level: float | None = None  # Vpp at which THD is taken (None: half the nominal swing)
+    thd_at: float | None = None  # Hz (None: midband)
 
     @classmethod
     def for_design(cls, design: Design, spec=None) -> Environment:
         """From the spec when given, else from what the design file recorded."""
         if spec is not None:
             r = spec.require
+            level = r.thd_level_vpp if r.thd_level_vpp > 0 else None
             return cls(tuple(r.ambient), spec.supply.tolerance, (r.f_low, r.f_high),
-                       r.noise_at, float(getattr(r, "ripple_at", 100.0)))
+                       r.noise_at, float(getattr(r, "ripple_at", 100.0)), level,
+                       r.thd_freq)
         cond = design.extra.get("conditions") or {}
         amb = cond.get("ambient") or (T_REF_C, T_REF_C)
         return cls(
@@ -121,6 +126,9 @@ class PointResult:
     @property
     def inverting(self) -> bool:
         return math.cos(np.angle(self.gain)) < 0.0
+    thd: float | None = None  # total harmonic distortion at the load (ratio), harmonic balance
+    hd2: float | None = None
+    hd3: float | None = None
 
 
 @dataclass(frozen=True)
@@ -175,6 +183,8 @@ class Analysis:
     @property
     def noise_rms(self) -> float | None:
         return self.nominal.noise_rms
+
+    @property
     def supply_rejection(self) -> float:
         """Nominal supply rejection, dB at the environment's ripple_at."""
         return self.nominal.supply_rejection
@@ -190,6 +200,23 @@ class Analysis:
     @property
     def stable_everywhere(self) -> bool:
         return self.nominal.stable and all(c.stable for c in self.corners)
+
+    @property
+    def thd(self) -> float | None:
+        """THD at the load at nominal (harmonic balance), at `thd_level`."""
+        return self.nominal.thd
+
+    @property
+    def thd_level(self) -> float | None:
+        """Output level (Vpp) of the distortion figures."""
+        fig = self.figures
+        return None if fig is None or fig.thd_level is None else float(fig.thd_level[0])
+
+    @property
+    def thd_at(self) -> float | None:
+        """Frequency (Hz) of the distortion figures."""
+        fig = self.figures
+        return None if fig is None or fig.thd_freq is None else float(fig.thd_freq[0])
 
     def max_corner(self, attr: str) -> float:
         return max(getattr(c, attr) for c in self.corners)
@@ -310,9 +337,19 @@ def point_results(
                 z_out=float(fig.z_out[k, j]),
                 **_noise_point(fig, k, j),
                 **_response_fields(fig, k, j),
+                thd=_ratio(fig.thd, k, j),
+                hd2=_ratio(fig.hd2, k, j),
+                hd3=_ratio(fig.hd3, k, j),
             )
         )
     return results
+
+
+def _ratio(arr: np.ndarray | None, k: int, j: int) -> float | None:
+    """One distortion figure as a float; None where not computed or not defined."""
+    if arr is None or not np.isfinite(arr[k, j]):
+        return None
+    return float(arr[k, j])
 
 
 def _noise_point(fig: Figures, k: int, j: int) -> dict[str, float | None]:
@@ -323,6 +360,9 @@ def _noise_point(fig: Figures, k: int, j: int) -> dict[str, float | None]:
         arr = getattr(fig, name)
         x = None if arr is None else float(arr[k, j])
         out[name] = x if x is not None and math.isfinite(x) else None
+    return out
+
+
 def _response_fields(fig: Figures, k: int, j: int) -> dict:
     """Supply rejection, peaking, stability and the two swing figures of one member."""
     out: dict = {}
@@ -354,6 +394,7 @@ def analyze(design: Design, spec=None, environment: Environment | None = None) -
         band=env.band,
         noise=NoisePlan(at=env.noise_at),
         ripple_at=env.ripple_at,
+        distortion=DistortionRequest(env.thd_level, env.thd_at, "hb"),
     )
     points = point_results(circuit, conditions, fig)
     return Analysis(

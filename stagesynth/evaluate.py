@@ -17,6 +17,7 @@ import numpy as np
 from .ac import AcSystem, linearize
 from .circuit import Circuit
 from .dc import DcBatch, solve_dc
+from .distortion import DistortionRequest, distortion_figures
 from .noise import NoisePlan, NoiseSources
 
 IC_ACTIVE_MIN = 100e-9  # A: below this collector current a transistor counts as cut off
@@ -92,6 +93,13 @@ class Figures:
     swing_mid_vpp: np.ndarray | None = None  # (K, M) swing with the ratios at midband
     swing_top_vpp: np.ndarray | None = None  # (K, M) ... at the required f_high (nan: none)
     ripple_at: float = 100.0  # Hz, where supply_rejection was taken
+    # distortion (when asked): (K, M) ratios at the load; level (Vpp) and frequency (K,)
+    thd: np.ndarray | None = None
+    hd2: np.ndarray | None = None
+    hd3: np.ndarray | None = None
+    thd_level: np.ndarray | None = None
+    thd_freq: np.ndarray | None = None
+    thd_method: str = ""
 
     @property
     def gain_db(self) -> np.ndarray:
@@ -126,6 +134,7 @@ def evaluate(
     ripple_at: float = 100.0,
     response: bool = True,
     peak_span: tuple[float, float] | None = None,
+    distortion: DistortionRequest | None = None,
 ) -> Figures:
     """Figures for K value sets (rows of r_values, c_values) at every condition.
 
@@ -140,6 +149,7 @@ def evaluate(
     (a sweep and a pole computation per member) only with `response`; `peak_span`
     narrows the peaking sweep (the synthesizer's search, where the capacitors are
     large placeholders, looks above midband only; the final analysis sweeps everything).
+    `distortion` asks for THD, HD2 and HD3 at every member (harmonic balance or estimate).
     """
     r_values = np.atleast_2d(np.asarray(r_values, dtype=float))
     c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
@@ -217,6 +227,13 @@ def evaluate(
                 pk = peaking(system.subset(idx), fm_all[idx], peak_span)
                 peak_db[idx], peak_f[idx] = pk.peak_db, pk.f_peak
             peak_db, peak_f = peak_db.reshape(k, m), peak_f.reshape(k, m)
+    dist = None
+    if distortion is not None:
+        dist = distortion_figures(
+            circuit, dc, system, r_rep, c_rep, distortion, k=k, m=m, midband=midband,
+            nominal_swing=swing.reshape(k, m)[:, 0], active=all_active,
+            source_resistance=source_resistance, load_resistance=load_resistance,
+            load_capacitance=load_capacitance)
     return Figures(
         midband=midband,
         gain=gain.reshape(k, m),
@@ -242,6 +259,12 @@ def evaluate(
         swing_mid_vpp=swing_mid.reshape(k, m),
         swing_top_vpp=swing_top.reshape(k, m),
         ripple_at=float(ripple_at),
+        thd=None if dist is None else dist.thd,
+        hd2=None if dist is None else dist.hd2,
+        hd3=None if dist is None else dist.hd3,
+        thd_level=None if dist is None else dist.level_vpp,
+        thd_freq=None if dist is None else dist.freq,
+        thd_method="" if dist is None else dist.method,
     )
 
 

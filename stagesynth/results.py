@@ -50,6 +50,9 @@ def point_to_dict(p: PointResult) -> dict[str, Any]:
         "node_voltages": dict(p.node_voltages),
         **_noise_keys(p),
         **response_dict(p),
+        "thd": p.thd,
+        "hd2": p.hd2,
+        "hd3": p.hd3,
     }
 
 
@@ -85,6 +88,7 @@ def analysis_to_dict(analysis: Analysis, verdict: Verdict | None = None) -> dict
         "midband": analysis.midband,
         "gain_phase_deg": math.degrees(math.atan2(analysis.gain.imag, analysis.gain.real)),
         "converged": analysis.converged,
+        **distortion_keys(analysis),
         "nominal": point_to_dict(analysis.nominal),
         "corners": [point_to_dict(c) for c in analysis.corners],
         **_noise_keys(analysis.nominal),
@@ -116,6 +120,17 @@ def _add_return_loss(out: dict[str, Any], analysis: Analysis) -> None:
         entry["return_loss"] = _num(value)
 
 
+def distortion_keys(analysis: Analysis) -> dict[str, Any]:
+    """thd, hd2, hd3 at nominal (ratios; None where undefined) and where they were taken."""
+    return {
+        "thd": analysis.nominal.thd,
+        "hd2": analysis.nominal.hd2,
+        "hd3": analysis.nominal.hd3,
+        "thd_level_vpp": analysis.thd_level,
+        "thd_at": analysis.thd_at,
+    }
+
+
 def predicted_block(analysis: Analysis) -> dict[str, Any]:
     """The design file's `predicted` figures (section 3), from the engine's analysis."""
     return {
@@ -139,4 +154,12 @@ def predicted_block(analysis: Analysis) -> dict[str, Any]:
         "peaking_db_worst": _num(max(
             (p.peaking_db for p in (analysis.nominal, *analysis.corners)), default=math.nan)),
         "stable_everywhere": analysis.stable_everywhere,
+        **distortion_keys(analysis),
+        "thd_max": _worst(c.thd for c in analysis.corners),
     }
+
+
+def _worst(values) -> float | None:
+    """The largest of the defined values (None when none is)."""
+    vals = [v for v in values if v is not None]
+    return max(vals) if vals else None

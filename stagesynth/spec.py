@@ -41,6 +41,7 @@ from .units import (
     parse_quantity,
     parse_swing,
     parse_temperature,
+    parse_thd,
 )
 
 
@@ -102,6 +103,11 @@ class Requirements:
     supply_rejection_db: float | None = None  # dB at ripple_at, at least
     ripple_at: float = 100.0  # Hz
     peaking_db: float = 3.0  # dB, |gain| nowhere more than this above midband
+    # distortion (second release): THD at the load at most `thd` (a ratio), at an output
+    # level `thd_level` (Vpp; None: the required swing) and frequency `thd_at` (None: midband)
+    thd: float | None = None
+    thd_level: float | None = None
+    thd_at: float | None = None
 
     @property
     def gain_db(self) -> float:
@@ -111,6 +117,16 @@ class Requirements:
     def midband(self) -> float:
         """Geometric mean of the required corners: where midband figures are taken."""
         return math.sqrt(self.f_low * self.f_high)
+
+    @property
+    def thd_level_vpp(self) -> float:
+        """Output level (Vpp) at which THD is judged: thd_level, else the required swing."""
+        return self.thd_level if self.thd_level is not None else self.swing_vpp
+
+    @property
+    def thd_freq(self) -> float:
+        """Frequency at which THD is judged: thd_at, else midband."""
+        return self.thd_at if self.thd_at is not None else self.midband
 
 
 @dataclass(frozen=True)
@@ -153,6 +169,7 @@ _SECTION_KEYS: dict[str, tuple[str, ...]] = {
         "return_loss",
         # supply and stability (second release)
         "supply_rejection", "ripple_at", "peaking",
+        "thd", "thd_level", "thd_at",
     ),
     "parts": ("resistors", "resistor_tolerance", "capacitors", "capacitor_tolerance",
               "resistor_max", "capacitor_max"),
@@ -641,6 +658,7 @@ def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
                              f"{format_quantity(yield_target, '%')}", file=file,
                              key="require.yield", accepted="a share such as '99 %'")
     supply_rejection, ripple_at, peaking = _supply_and_stability(r, file)
+    thd, thd_level, thd_at = _distortion(r, file, swing)
     return Requirements(
         gain=gain,
         f_low=f_low,
@@ -657,6 +675,9 @@ def _requirements(r: Mapping[str, Any], file: str) -> Requirements:
         supply_rejection_db=supply_rejection,
         ripple_at=ripple_at,
         peaking_db=peaking,
+        thd=thd,
+        thd_level=thd_level,
+        thd_at=thd_at,
     )
 
 
@@ -697,6 +718,24 @@ def _supply_and_stability(r: Mapping[str, Any], file: str) -> tuple[float | None
                              key="require.peaking",
                              accepted="a level in dB such as '1 dB' (0 dB: no rise at all)")
     return rejection, ripple_at, peaking
+
+
+def _distortion(r: Mapping[str, Any], file: str,
+                swing: float) -> tuple[float | None, float | None, float | None]:
+    """thd (a ratio), thd_level (Vpp) and thd_at (Hz), validated (None where absent)."""
+    thd = parse_thd(r["thd"], key="require.thd", file=file) if "thd" in r else None
+    level = None
+    if "thd_level" in r:
+        level = parse_swing(r["thd_level"], key="require.thd_level", file=file)
+        if level <= 0:
+            raise StageError(f"must be greater than zero, got {level:g} Vpp", file=file,
+                             key="require.thd_level", accepted="an output level such as '2 Vpp'")
+    if thd is not None and level is None and swing <= 0:
+        raise StageError("thd needs an output level: neither thd_level nor swing is given",
+                         file=file, key="require.thd",
+                         accepted='thd_level = "2 Vpp" (or swing = "2 Vpp") beside thd')
+    at = _quantity(r, "thd_at", "require", file, "Hz", ">0", None)
+    return thd, level, at
 
 
 def _ambient(value: Any, file: str) -> tuple[float, float]:
@@ -829,6 +868,12 @@ def spec_to_toml(spec: Spec) -> str:
         lines.append(f"supply_rejection = {_q(r.supply_rejection_db, 'dB')}")
     lines.append(f"ripple_at = {_q(r.ripple_at, 'Hz')}")
     lines.append(f"peaking = {_q(r.peaking_db, 'dB')}")
+    if r.thd is not None:
+        lines.append(f"thd = {_q(r.thd, '%')}")
+    if r.thd_level is not None:
+        lines.append(f"thd_level = {_q(r.thd_level, 'Vpp')}")
+    if r.thd_at is not None:
+        lines.append(f"thd_at = {_q(r.thd_at, 'Hz')}")
     lines += ["", "[transistor]"]
     if d.name:
         lines.append(f"name = {_toml_str(d.name)}")

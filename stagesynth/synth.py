@@ -31,6 +31,7 @@ from .analysis import Analysis, Environment, analyze, condition_arrays, corner_c
 from .capsizing import size_capacitors
 from .circuit import compile_design
 from .dc import solve_dc
+from .distortion import DistortionRequest
 from .errors import NoDesignError, StageError
 from .eseries import nearest, neighbours, values_between
 from .evaluate import Conditions, Figures, evaluate
@@ -68,6 +69,10 @@ YIELD_SCREEN_UNITS = 1500  # units per candidate while choosing (common random n
 YIELD_FINAL_UNITS = 10_000  # units for the figure written to the design file
 _LF_SKIP = ("f_low",)  # capacitors are sized after the resistors
 SEARCH_NOISE_GRID = 8  # points per decade of the band rms while searching (final: 16)
+# The search screens THD with the power-series estimate (volterra.py), held to the limit
+# less this allowance: the estimate stays within about 0.3 dB of harmonic balance while
+# HD2 is below a few per cent (tests/test_distortion.py); the verdict is harmonic balance.
+THD_ALLOWANCE_DB = 0.5
 
 
 @dataclass(frozen=True)
@@ -139,6 +144,14 @@ class _Search:
     def r_matrix(self, values: dict[str, np.ndarray]) -> np.ndarray:
         return np.stack([np.asarray(values[ref], dtype=float) for ref in self.r_refs], axis=1)
 
+    @property
+    def distortion(self) -> DistortionRequest | None:
+        """The THD screen (power-series estimate) when the spec asks for a THD."""
+        r = self.spec.require
+        if r.thd is None:
+            return None
+        return DistortionRequest(r.thd_level_vpp, r.thd_freq, "estimate")
+
     def evaluate(self, r: np.ndarray, c: np.ndarray | None = None) -> Figures:
         k = r.shape[0]
         self.evaluated += k
@@ -152,7 +165,7 @@ class _Search:
                         band=(self.spec.require.f_low, self.spec.require.f_high),
                         corners="high", noise=plan_for(self.spec.require, SEARCH_NOISE_GRID),
                         ripple_at=self.spec.require.ripple_at,
-                        peak_span=self.peak_span)
+                        peak_span=self.peak_span, distortion=self.distortion)
 
     def screen(self, r: np.ndarray, spec: Spec) -> np.ndarray:
         """Indices of the candidates worth judging at every corner.
@@ -174,7 +187,8 @@ class _Search:
                         source_capacitance=d.source_capacitance,
                        band=(spec.require.f_low, spec.require.f_high), corners="high",
                        noise=plan_for(spec.require, SEARCH_NOISE_GRID),
-                       ripple_at=spec.require.ripple_at, peak_span=self.peak_span)
+                       ripple_at=spec.require.ripple_at, peak_span=self.peak_span,
+                       distortion=self.distortion)
         self.evaluated += k
         rows = assess(fig, spec, self.circuit, first_corner=0)
         score = smallest_margin(rows, _LF_SKIP)
@@ -418,6 +432,9 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
     if name == "return_loss":
         return (f"relax return_loss to {best:.1f} dB, or terminate the input with a "
                 "resistor equal to the source resistance")
+    if name == "thd":
+        return (f"relax thd to {_fmt(1.05 * best, '%')}, or lower thd_level or the gain "
+                "(more of the emitter resistance can then stay unbypassed)")
     if name.endswith(("ic_max", "vce_max", "p_max")):
         return "choose a transistor with higher ratings, or a lower supply"
     if name in ("noise", "noise_figure", "noise_rms"):
@@ -607,6 +624,10 @@ def _synthesize_family(
     t0 = time.perf_counter()
     aim = spec if gain_scale == 1.0 else replace(
         spec, require=replace(spec.require, gain=spec.require.gain * gain_scale))
+    if spec.require.thd is not None:  # the screen's allowance for the estimate's error
+        aim = replace(aim, require=replace(
+            aim.require, thd=spec.require.thd * 10.0 ** (-THD_ALLOWANCE_DB / 20.0),
+            thd_level=spec.require.thd_level_vpp, thd_at=spec.require.thd_freq))
     search = _Search(aim, family)
     physics = [*_physics_conflicts(spec), *family.precheck(spec)]
 
@@ -721,6 +742,7 @@ def _synthesize_family(
                 conflicts.append(Conflict(c.name, _check_limit(c),
                                           f"{_fmt_check(c)} in the closest design written",
                                           _advice(c.name, _number(c.value), spec, c.unit)))
+        conflicts = [_thd_conflict(c, analysis) if c.name == "thd" else c for c in conflicts]
     polarity = "PNP" if spec.transistor.polarity == "pnp" else "NPN"
     from .leakage import capacitor_kinds
 
@@ -729,6 +751,7 @@ def _synthesize_family(
         f"Circuit: {family.TITLE} ({polarity}).",
         *family.describe(spec, design, analysis),
         *_noise_notes(spec, analysis),
+        *_linearity_notes(spec, analysis),
         *sizing.notes,
         *_kind_notes(kinds, spec),
         *yield_notes,
@@ -909,6 +932,24 @@ def _noise_notes(spec: Spec, analysis: Analysis) -> list[str]:
     from .lownoise import rationale
 
     return rationale(spec, analysis)
+def _linearity_notes(spec: Spec, analysis: Analysis) -> list[str]:
+    """What limits the THD and what local feedback bought (when the spec asks a THD)."""
+    if spec.require.thd is None:
+        return []
+    from .linearity import linearity, notes
+
+    lin = linearity(analysis)
+    return notes(lin) if lin is not None else []
+
+
+def _thd_conflict(c: Conflict, analysis: Analysis) -> Conflict:
+    """A THD no candidate reached: name the limiting mechanism of the closest design."""
+    from .linearity import linearity, mechanism
+
+    lin = linearity(analysis)
+    if lin is None:
+        return c
+    return Conflict(c.name, c.limit, f"{c.best}; {mechanism(lin)}", c.advice)
 
 
 def _low_frequency_droop(design: Design, spec: Spec, search: _Search) -> float:

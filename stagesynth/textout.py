@@ -172,6 +172,10 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
         *_noise_rows(analysis),
     ]
     rows += supply_stability_rows(analysis)
+    if analysis.thd is not None:
+        rows.append(["THD", f"{fmt(analysis.thd, '%')} at {fmt(analysis.thd_level, 'Vpp')}, "
+                            f"{fmt(analysis.thd_at, 'Hz')} (HD2 {fmt(analysis.nominal.hd2, '%')}, "
+                            f"HD3 {fmt(analysis.nominal.hd3, '%')}; harmonic balance)"])
     out += _table(["figure", "value"], rows)
     off = [f"{ref} {s.region}" for ref, s in analysis.nominal.transistors.items()
            if s.region != "active"]
@@ -182,7 +186,7 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
     refs = [p.ref for p in d.bjts]
     sat = {p.ref: d.devices[p.device].vce_sat for p in d.bjts}
     header = ["condition"] + [f"{r} {x}" for r in refs for x in ("IC", "VCE", "Tj")] + [
-        "supply I", "swing", "limited by"]
+        "supply I", "swing", "limited by", "THD"]
     rows = []
     for p in (analysis.nominal, *analysis.corners):
         row = [p.condition.label]
@@ -190,7 +194,8 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
             s = p.transistors[r]
             ic, vce, _ = transistor_cells(s, sat[r])
             row += [ic, vce, f"{s.tj:.1f} °C"]
-        row += [fmt(p.supply_current, "A"), fmt(p.swing_vpp, "Vpp"), p.swing_limit]
+        row += [fmt(p.supply_current, "A"), fmt(p.swing_vpp, "Vpp"), p.swing_limit,
+                fmt(p.thd, "%") if p.thd is not None else "n/a"]
         rows.append(row)
     out += _table(header, rows)
     if verdict is not None:

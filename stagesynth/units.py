@@ -310,6 +310,29 @@ def parse_db(value: object, *, key: str = "", file: str = "") -> float:
     return x
 
 
+def parse_thd(value: object, *, key: str = "", file: str = "") -> float:
+    """Read a distortion ratio: "0.5 %", "300 ppm", "-46 dB" (below the fundamental);
+    a bare number is a fraction. Returns the ratio (0.005 for "0.5 %")."""
+    accepted = ("a distortion such as '0.5 %', '300 ppm', '-46 dB' (relative to the "
+                "fundamental) or 0.005 (a fraction)")
+    x, suffix = _number_and_suffix(
+        value, {"%": 1e-2, "ppm": 1e-6, "dB": 1.0, "db": 1.0, "dBc": 1.0},
+        key=key, file=file, accepted=accepted, what="distortion ratio")
+    if suffix is not None and suffix.lower().startswith("db"):
+        if not x < 0:
+            raise _fail(f"{_show(value)} is not below the fundamental; distortion in dB "
+                        "is negative (e.g. '-46 dB' = 0.5 %)", key, file, accepted)
+        return 10.0 ** (x / 20.0)
+    if not x > 0:
+        raise _fail(f"{_show(value)} must be greater than zero", key, file, accepted)
+    if suffix is None and x >= 1:
+        raise _fail(f"{_show(value)} is read as a fraction ({x:g} = {x * 100:g} %); "
+                    f"did you mean '{x:g} %'?", key, file, accepted)
+    if x >= 1:
+        raise _fail(f"{_show(value)} is 100 % or more of the fundamental", key, file, accepted)
+    return x
+
+
 ZERO_CELSIUS_K = 273.15
 _BARE_KELVIN_FLOOR = 150.0  # a bare number below this was almost surely meant as Celsius
 

@@ -154,6 +154,8 @@ def assess(
     rows.extend(_range_and_match_rows(fig, spec, first_corner))
     rows.extend(noise_rows(fig, spec, first_corner))
     rows.extend(supply_stability_rows(fig, spec, first_corner))
+    if r.thd is not None and fig.thd is not None:
+        rows.append(thd_row(fig, r.thd, first_corner))
     if ratings:
         rows.extend(_rating_rows(fig, circuit, corners))
     return rows
@@ -204,6 +206,12 @@ def _range_and_match_rows(fig: Figures, spec: Spec, first_corner: int) -> list[R
         rows.append(_worst_row(_at_least, "return_loss", rl.reshape(k, m)[:, judged],
                                r.return_loss, "dB", judged))
     return rows
+
+
+def thd_row(fig: Figures, limit: float, first_corner: int = 1) -> Row:
+    """THD at most `limit`, judged at nominal and every corner: the worst, with its condition."""
+    judged = _judged(fig.thd.shape[1], first_corner)
+    return _worst_row(_at_most, "thd", fig.thd[:, judged], limit, "%", judged)
 
 
 def noise_rows(fig: Figures, spec: Spec, first_corner: int = 1) -> list[Row]:
@@ -428,6 +436,9 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
                 detail += f": {why}"
             elif row.name == "active":
                 detail = ""
+            elif row.name == "thd" and fig.thd_level is not None:
+                detail += (f": at {float(fig.thd_level[0]):.3g} Vpp, "
+                           f"{float(fig.thd_freq[0]):.4g} Hz (harmonic balance)")
             if row.name.endswith(".vce_max"):
                 top = max(pt.condition.supply for pt in points)
                 detail += (f"; judged at the operating point; at cutoff VCE approaches "

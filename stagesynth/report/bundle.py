@@ -22,7 +22,8 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
 
 PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg", "ripple.svg")
 BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
-                "stage.s2p", "histograms.svg", "pulse.svg", "noise.svg")
+                "stage.s2p", "histograms.svg", "pulse.svg", "noise.svg",
+                "distortion.svg")
 
 
 def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
@@ -99,15 +100,37 @@ def write_bundle(
 
     contents["noise.svg"] = _svg(noise_plot(analysis, spec))
     svgs["noise"] = contents["noise.svg"].decode("utf-8")
+    distortion = _distortion(analysis, spec)
+    if distortion is not None:
+        from .distortionview import distortion_figure
+        from .plots import figure_svg
+
+        contents["distortion.svg"] = figure_svg(distortion_figure(distortion[0]))
+        svgs["distortion"] = contents["distortion.svg"].decode("utf-8")
+    else:
+        names.remove("distortion.svg")
     contents["schematic.svg"] = svgs["schematic"].encode("utf-8")
     contents["bom.csv"] = bom_csv(design, analysis, spec, rows=rows).encode("utf-8")
     contents["stage.s2p"] = stage_touchstone(design, analysis).encode("latin-1")
     contents["report.md"] = report_markdown(design, analysis, verdict, spec, notes, bom=rows,
-                                            pz=pz, robustness=rob, pulse=pulse).encode("utf-8")
+                                            pz=pz, robustness=rob, pulse=pulse,
+                                            distortion=distortion).encode("utf-8")
     contents["report.html"] = report_html(design, analysis, verdict, spec, notes, svgs=svgs,
                                           bom=rows, pz=pz, robustness=rob,
-                                          pulse=pulse).encode("utf-8")
+                                          pulse=pulse, distortion=distortion).encode("utf-8")
     return [out.write_bytes(name, contents[name]) for name in names]
+
+
+def _distortion(analysis: Analysis, spec: Spec | None):
+    """(DistortionViews, rationale lines) from the engine, or None without distortion."""
+    from ..linearity import linearity, notes
+    from ..thdsweep import distortion_views
+
+    views = distortion_views(analysis, spec.require.thd if spec is not None else None)
+    if views is None:
+        return None
+    lin = linearity(analysis)
+    return views, notes(lin) if lin is not None else []
 
 
 def _default_pulse(analysis: Analysis):

@@ -36,7 +36,8 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
 
 FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg",
                 "histograms": "histograms.svg", "pulse": "pulse.svg", "noise": "noise.svg",
-                "ripple": "ripple.svg"}
+                "ripple": "ripple.svg",
+                "distortion": "distortion.svg"}
 
 SAFETY = (
     "Check every voltage and power rating with margin against the worst case in this "
@@ -235,6 +236,7 @@ def build_document(
     pz: PoleZeroMap | None = None,
     robustness=None,
     pulse=None,
+    distortion=None,
 ) -> Document:
     """The report's content, independent of the output format."""
     from .. import __version__
@@ -328,6 +330,10 @@ def build_document(
                + (" Shaded: outside the spec's limits (judged at midband)." if spec is not None
                   else "")),
     )))
+    if distortion is not None:  # (DistortionViews, rationale lines) from the engine
+        from .distortionview import distortion_section
+
+        sections.append(distortion_section(*distortion))
     est_lo, est_hi = corner_estimates(pz)
     est = []
     if analysis.f_low > 0 and est_lo > 0:
