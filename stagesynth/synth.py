@@ -922,7 +922,20 @@ def _quiet_input_coupling(design: Design, spec: Spec) -> Design:
         up = [x for x in opts if x >= target]
         cap = min(CAP_LIMIT, spec.parts.capacitor_max)  # never past the part limit
         values[p.ref] = min(min(up) if up else max(opts), max(cap, p.value))
-    return design.with_values(values) if values else design
+    if not values:
+        return design
+    # a larger capacitor leaks more: where the raised one would have to be film or
+    # ceramic (its leakage moving the bias), hold it to film size, never below its old value
+    from .leakage import FILM_MAX
+    from .practical import leakage_limits
+
+    old = {p.ref: p.value for p in design.parts}
+    flagged = leakage_limits(design.with_values(values), spec)
+    for ref in values:
+        if ref in flagged and values[ref] > FILM_MAX:
+            values[ref] = max(old[ref], max(v for v in (nearest(FILM_MAX, series), *neighbours(
+                FILM_MAX, series, 1)) if v <= FILM_MAX * (1 + 1e-9)))
+    return design.with_values(values)
 
 
 def _noise_notes(spec: Spec, analysis: Analysis) -> list[str]:
