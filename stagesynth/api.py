@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 from .errors import StageError
 from .netlist import Design
 from .spec import Spec
+from .units import format_quantity as fq
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     import control
@@ -367,7 +368,7 @@ def resize_capacitors(design: Design | str | Path, f_low: float,
     if not math.isfinite(f_high):
         f_high = 1e4 * target  # no upper corner: judge well above the new low corner
     if target >= f_high:
-        raise StageError(f"{target:g} Hz is not below the high corner {f_high:g} Hz",
+        raise StageError(f"{fq(target, 'Hz')} is not below the high corner {fq(f_high, 'Hz')}",
                          key="--f-low", accepted="a frequency below f_high")
     env = replace(env, band=(target, f_high))
     syn = d.extra.get("synthesis")

@@ -18,6 +18,7 @@ import numpy as np
 
 from .analysis import Analysis
 from .device import thermal_voltage
+from .units import format_quantity as fq
 
 
 @dataclass(frozen=True)
@@ -101,7 +102,7 @@ def notes(lin: Linearity) -> list[str]:
     """Rationale lines for the report and the synthesis notes."""
     q = lin.limiting
     lines = [
-        f"Distortion: THD {_pct(lin.thd)} at {lin.level_vpp:.3g} Vpp, {lin.freq:.4g} Hz "
+        f"Distortion: THD {_pct(lin.thd)} at {fq(lin.level_vpp, 'Vpp')}, {fq(lin.freq, 'Hz')} "
         f"(HD2 {_pct(lin.hd2)}, HD3 {_pct(lin.hd3)}; harmonic balance, nominal); "
         + mechanism(lin) + ".",
     ]

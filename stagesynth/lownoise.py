@@ -17,6 +17,7 @@ import numpy as np
 
 from .device import BOLTZMANN, ELEMENTARY_CHARGE, ZERO_CELSIUS, Device, hfe_at
 from .noise import T0
+from .units import format_quantity as fq
 
 FLOOR_SLACK = 0.97  # a requirement below this share of the floor is refused outright
 
@@ -96,7 +97,7 @@ def _cause(device: Device, rs: float, beta: float, f: float) -> str:
         main = f"the shot noise of the base and collector currents (β = {beta:.0f}) through rx"
     if ff > 1.5:
         main += (f", with the base current's 1/f noise ({ff:.1f}× its white value at "
-                 f"{f:g} Hz, flicker corner {device.flicker_corner:g} Hz)")
+                 f"{fq(f, 'Hz')}, flicker corner {fq(device.flicker_corner, 'Hz')})")
     return main
 
 
@@ -175,7 +176,7 @@ def rationale(spec, analysis) -> list[str]:
     top = rows[0]
     total = math.sqrt(sum(x.density2 for x in rows))
     lines = [
-        f"Noise at {f:.4g} Hz: {total * 1e9:.3g} nV/√Hz input-referred; the largest term is "
+        f"Noise at {fq(f, 'Hz')}: {fq(total, 'V/√Hz')} input-referred; the largest term is "
         f"{top.label} ({100 * top.share:.0f} %), then "
         + ", ".join(f"{x.label} {100 * x.share:.0f} %" for x in rows[1:4]) + "."
     ]

@@ -26,6 +26,7 @@ from .limits import (
     nesting_depth,
     out_of_range,
 )
+from .units import format_quantity as fq
 
 FORMAT = "stagesynth-design-1"
 PART_KINDS = ("resistor", "capacitor", "bjt")
@@ -401,7 +402,8 @@ def design_from_dict(data: Any, file: str = "<design>") -> Design:
         b = r.mapping(data, "band")
         band = (r.number(b, "f_low", "band"), r.number(b, "f_high", "band"))
         if band[0] >= band[1]:
-            raise r.fail("band", f"f_low {band[0]:g} Hz is not below f_high {band[1]:g} Hz",
+            raise r.fail("band",
+                         f"f_low {fq(band[0], 'Hz')} is not below f_high {fq(band[1], 'Hz')}",
                          "f_low < f_high")
     predicted = data.get("predicted") or {}
     if not isinstance(predicted, Mapping):

@@ -23,6 +23,7 @@ from .circuit import Circuit
 from .evaluate import Figures
 from .spec import Spec
 from .units import format_quantity as eng
+from .units import format_quantity as fq
 
 
 @dataclass(frozen=True)
@@ -438,7 +439,7 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
                 detail = ""
             elif row.name == "thd" and fig.thd_level is not None:
                 detail += (f": at {float(fig.thd_level[0]):.3g} Vpp, "
-                           f"{float(fig.thd_freq[0]):.4g} Hz (harmonic balance)")
+                           f"{fq(float(fig.thd_freq[0]), 'Hz')} (harmonic balance)")
             if row.name.endswith(".vce_max"):
                 top = max(pt.condition.supply for pt in points)
                 detail += (f"; judged at the operating point; at cutoff VCE approaches "

@@ -5,6 +5,10 @@ netlist, operating point from refmodel.py); the engine uses harmonic balance red
 the transistor terminals. Agreement is required within 0.5 dB for THD, HD2 and HD3 at
 nominal and at the corner the CLI names as the worst, and the verdict row must take the
 worst of nominal and every corner.
+
+Outside source: docs/spec-format.md §2 "Distortion" (the contract), implemented
+independently in tests/independent/refthd.py; THD = sqrt(sum V_k^2, k = 2..10)/V_1 is the
+standard definition (IEC 60268-3 style, from memory).
 """
 
 from __future__ import annotations
