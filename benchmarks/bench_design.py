@@ -27,10 +27,10 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from stagesynth.fileio import OutputDir  # noqa: E402
+from stagesynth.contracts.fileio import OutputDir  # noqa: E402
+from stagesynth.contracts.spec import Spec, load_spec  # noqa: E402
 from stagesynth.report.bundle import write_bundle  # noqa: E402
-from stagesynth.spec import Spec, load_spec  # noqa: E402
-from stagesynth.synth import synthesize  # noqa: E402
+from stagesynth.synthesis.synth import synthesize  # noqa: E402
 
 TARGET_S = 2.0
 PHASES = ("first_cut_s", "standard_values_s", "capacitors_s", "verify_s")

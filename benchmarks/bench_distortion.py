@@ -25,14 +25,14 @@ sys.path.insert(0, str(ROOT))
 
 import numpy as np  # noqa: E402
 
-from stagesynth.analysis import analyze, batch_values  # noqa: E402
-from stagesynth.circuit import compile_design  # noqa: E402
-from stagesynth.distortion import _dc_subset  # noqa: E402
-from stagesynth.harmonic import LargeSignal, solve_periodic  # noqa: E402
-from stagesynth.netlist import load_design  # noqa: E402
-from stagesynth.spec import spec_from_mapping  # noqa: E402
-from stagesynth.synth import synthesize  # noqa: E402
-from stagesynth.thdsweep import distortion_views  # noqa: E402
+from stagesynth.contracts.netlist import load_design  # noqa: E402
+from stagesynth.contracts.spec import spec_from_mapping  # noqa: E402
+from stagesynth.engine.analysis import analyze, batch_values  # noqa: E402
+from stagesynth.engine.circuit import compile_design  # noqa: E402
+from stagesynth.engine.distortion import _dc_subset  # noqa: E402
+from stagesynth.engine.harmonic import LargeSignal, solve_periodic  # noqa: E402
+from stagesynth.engine.thdsweep import distortion_views  # noqa: E402
+from stagesynth.synthesis.synth import synthesize  # noqa: E402
 
 LINE_STAGE = {
     "title": "Studio line stage (benchmark)",

@@ -32,10 +32,10 @@ sys.path.insert(0, str(ROOT / "tests"))
 
 from conftest import ce_follower, npn_ce  # noqa: E402
 
-from stagesynth.analysis import analyze  # noqa: E402
-from stagesynth.circuit import compile_design  # noqa: E402
-from stagesynth.dc import solve_dc  # noqa: E402
-from stagesynth.netlist import Design  # noqa: E402
+from stagesynth.contracts.netlist import Design  # noqa: E402
+from stagesynth.engine.analysis import analyze  # noqa: E402
+from stagesynth.engine.circuit import compile_design  # noqa: E402
+from stagesynth.engine.dc import solve_dc  # noqa: E402
 
 POINTS = 10_000
 BATCH = 1_000
@@ -169,7 +169,7 @@ def bench_startup() -> None:
 
 def bench_response() -> None:
     """Peaking sweep and batched poles per member (synthesis judges both at every corner)."""
-    from stagesynth.peaking import peaking, stability
+    from stagesynth.engine.peaking import peaking, stability
 
     print(f"peaking sweep and stability, {BATCH:,} members (best of 3)")
     for label, build in STAGES.items():

@@ -13,9 +13,9 @@ import time
 import tracemalloc
 from pathlib import Path
 
-from stagesynth.montecarlo import monte_carlo
-from stagesynth.spec import load_spec
-from stagesynth.synth import synthesize
+from stagesynth.contracts.spec import load_spec
+from stagesynth.judging.montecarlo import monte_carlo
+from stagesynth.synthesis.synth import synthesize
 
 ROOT = Path(__file__).resolve().parent.parent
 UNITS = 10_000

@@ -25,10 +25,10 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from stagesynth.analysis import analyze  # noqa: E402
-from stagesynth.noise import nominal_spectrum  # noqa: E402
-from stagesynth.spec import load_spec  # noqa: E402
-from stagesynth.synth import synthesize  # noqa: E402
+from stagesynth.contracts.spec import load_spec  # noqa: E402
+from stagesynth.engine.analysis import analyze  # noqa: E402
+from stagesynth.engine.noise import nominal_spectrum  # noqa: E402
+from stagesynth.synthesis.synth import synthesize  # noqa: E402
 
 SWEEP_TARGET_S = 0.020
 SYNTH_RATIO_TARGET = 1.5

@@ -43,10 +43,10 @@ _LAZY: dict[str, str] = {
     "Assessment": "api",
     "YieldResult": "api",
     "CapacitorChange": "api",
-    "Design": "netlist",
-    "Part": "netlist",
-    "Spec": "spec",
-    "StageError": "errors",
+    "Design": "contracts.netlist",
+    "Part": "contracts.netlist",
+    "Spec": "contracts.spec",
+    "StageError": "quantities.errors",
 }
 
 __all__ = [  # noqa: RUF022 - in the order of the flow, not alphabetical
@@ -58,7 +58,7 @@ __all__ = [  # noqa: RUF022 - in the order of the flow, not alphabetical
 ]
 
 if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors
-    from .api import (
+    from stagesynth.api import (
         Assessment,
         CapacitorChange,
         Result,
@@ -74,9 +74,9 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors
         to_network,
         write_report,
     )
-    from .errors import StageError
-    from .netlist import Design, Part
-    from .spec import Spec
+    from stagesynth.contracts.netlist import Design, Part
+    from stagesynth.contracts.spec import Spec
+    from stagesynth.quantities.errors import StageError
 
 
 def __getattr__(name: str) -> Any:

@@ -3,7 +3,7 @@
 import sys
 
 try:
-    from .cli import main
+    from stagesynth.cli import main
 except KeyboardInterrupt:  # Ctrl-C while the libraries load: nothing was written
     sys.stderr.write("stagesynth: interrupted, nothing changed\n")
     sys.exit(130)

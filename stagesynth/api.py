@@ -14,21 +14,21 @@ from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from .errors import StageError
-from .netlist import Design
-from .spec import Spec
-from .units import format_quantity as fq
+from stagesynth.contracts.netlist import Design
+from stagesynth.contracts.spec import Spec
+from stagesynth.quantities.errors import StageError
+from stagesynth.quantities.units import format_quantity as fq
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     import control
     import skrf
 
-    from .analysis import Analysis
-    from .fileio import OutputDir
-    from .montecarlo import YieldEstimate
-    from .polezero import PoleZeroMap
-    from .pulse import PulseResponse
-    from .verdict import Verdict
+    from stagesynth.contracts.fileio import OutputDir
+    from stagesynth.engine.analysis import Analysis
+    from stagesynth.engine.polezero import PoleZeroMap
+    from stagesynth.engine.pulse import PulseResponse
+    from stagesynth.judging.montecarlo import YieldEstimate
+    from stagesynth.judging.verdict import Verdict
 
 SEED = 20261201  # default Monte Carlo seed (reproducible runs)
 YIELD_UNITS = 10_000  # units of the Monte Carlo a yield requirement gets by default
@@ -79,9 +79,9 @@ class Assessment:
 
     def to_dict(self) -> dict[str, Any]:
         """The object `stagesynth analyze --json` prints."""
-        from .netlist import _clean_floats
-        from .results import analysis_to_dict
-        from .stability import robustness
+        from stagesynth.contracts.netlist import _clean_floats
+        from stagesynth.judging.results import analysis_to_dict
+        from stagesynth.judging.stability import robustness
 
         out = analysis_to_dict(self.analysis, self.verdict)
         out["robustness"] = robustness(self.analysis)
@@ -112,8 +112,8 @@ class Result:
 
     def to_dict(self) -> dict[str, Any]:
         """Design file, analysis with verdict, rationale, conflicts and families tried."""
-        from .netlist import _clean_floats
-        from .results import analysis_to_dict
+        from stagesynth.contracts.netlist import _clean_floats
+        from stagesynth.judging.results import analysis_to_dict
 
         return _clean_floats({
             "meets_spec": self.meets_spec,
@@ -159,8 +159,8 @@ class CapacitorChange:
 # ---------------------------------------------------------------------------
 def load_spec(source: str | Path | Mapping[str, Any] | Spec) -> Spec:
     """A validated spec from a TOML file or a dict of the same shape (StageError if bad)."""
-    from .spec import load_spec as _load
-    from .spec import spec_from_mapping
+    from stagesynth.contracts.spec import load_spec as _load
+    from stagesynth.contracts.spec import spec_from_mapping
 
     if isinstance(source, Spec):
         return source
@@ -171,8 +171,8 @@ def load_spec(source: str | Path | Mapping[str, Any] | Spec) -> Spec:
 
 def load_design(source: str | Path | Mapping[str, Any] | Design) -> Design:
     """A validated design from a design.json file or a dict of the same shape."""
-    from .netlist import design_from_dict
-    from .netlist import load_design as _load
+    from stagesynth.contracts.netlist import design_from_dict
+    from stagesynth.contracts.netlist import load_design as _load
 
     if isinstance(source, Design):
         return source
@@ -197,9 +197,9 @@ def _spec_or_none(spec: Any) -> Spec | None:
 def finished_design(design: Design, analysis: Analysis,
                     pz: PoleZeroMap | None = None) -> Design:
     """The design file's content: netlist plus pole/zero map, capacitor stress, robustness."""
-    from .polezero import pole_zero_map, poles_zeros_dict
-    from .report.bom import capacitor_stress
-    from .stability import robustness
+    from stagesynth.engine.polezero import pole_zero_map, poles_zeros_dict
+    from stagesynth.judging.stability import robustness
+    from stagesynth.report.bom import capacitor_stress
 
     pz = pz if pz is not None else pole_zero_map(analysis)
     caps = {p.ref: capacitor_stress(design, analysis, p)
@@ -211,9 +211,9 @@ def finished_design(design: Design, analysis: Analysis,
 def synthesize(spec: Spec | str | Path | Mapping[str, Any], circuit: str | None = None,
                prefer: str = "margin") -> Result:
     """Design a stage that meets `spec` (the simplest circuit family unless `circuit`)."""
-    from .polezero import pole_zero_map
-    from .synth import synthesize as _synthesize
-    from .topologies import FAMILIES
+    from stagesynth.engine.polezero import pole_zero_map
+    from stagesynth.synthesis.synth import synthesize as _synthesize
+    from stagesynth.synthesis.topologies import FAMILIES
 
     spec = load_spec(spec)
     if prefer not in PREFER:
@@ -234,8 +234,8 @@ def monte_carlo(design: Design | str | Path, spec: Spec | str | Path | Mapping[s
                 units: int = YIELD_UNITS, seed: int = SEED, *,
                 progress: Callable[[int], None] | None = None) -> YieldResult:
     """Yield over `units` built units (contract section 2), seeded, with tolerance advice."""
-    from .montecarlo import monte_carlo as _mc
-    from .sensitivity import recommendations, spreads
+    from stagesynth.judging.montecarlo import monte_carlo as _mc
+    from stagesynth.judging.sensitivity import recommendations, spreads
 
     design, spec = _design_of(design), load_spec(spec)
     if isinstance(units, bool) or not isinstance(units, int) or units < 1:
@@ -256,8 +256,8 @@ def analyze(design: Design | str | Path | Mapping[str, Any],
     A spec asking for a yield gets a Monte Carlo of 10,000 units (`units` sets another
     count, 0 skips it); without a yield requirement `units` runs one for information.
     """
-    from .analysis import analyze as _analyze
-    from .verdict import judge, with_checks, yield_check
+    from stagesynth.engine.analysis import analyze as _analyze
+    from stagesynth.judging.verdict import judge, with_checks, yield_check
 
     design, spec = _design_of(design), _spec_or_none(spec)
     if units is not None and (isinstance(units, bool) or not isinstance(units, int)
@@ -292,7 +292,7 @@ def write_report(result_or_design: Result | Assessment | Design | str | Path,
     Every target is checked before anything is written; files stagesynth did not
     write are never replaced unless `force`. `report=False` writes design.json only.
     """
-    from .fileio import OutputDir
+    from stagesynth.contracts.fileio import OutputDir
 
     _check_width(pulse_width)
     if not isinstance(out_dir, OutputDir):  # one locked, all-or-nothing set of files
@@ -320,7 +320,7 @@ def write_report(result_or_design: Result | Assessment | Design | str | Path,
     if isinstance(obj, Result):
         written.append(out.write_text("design.json", design.to_json()))
     if report:
-        from .report.bundle import write_bundle
+        from stagesynth.report.bundle import write_bundle
 
         pulse = None
         if pulse_width is not None:
@@ -335,7 +335,7 @@ def write_report(result_or_design: Result | Assessment | Design | str | Path,
 
 def report_files() -> list[str]:
     """Names of the report files write_report may write (besides design.json)."""
-    from .report.bundle import BUNDLE_FILES
+    from stagesynth.report.bundle import BUNDLE_FILES
 
     return list(BUNDLE_FILES)
 
@@ -353,11 +353,11 @@ def resize_capacitors(design: Design | str | Path, f_low: float,
                       spec: Spec | str | Path | Mapping[str, Any] | None = None
                       ) -> CapacitorChange:
     """Re-size the coupling and bypass capacitors for a new low corner f_low (Hz)."""
-    from .analysis import Environment
-    from .analysis import analyze as _analyze
-    from .capsizing import size_capacitors
-    from .results import predicted_block
-    from .verdict import judge
+    from stagesynth.engine.analysis import Environment
+    from stagesynth.engine.analysis import analyze as _analyze
+    from stagesynth.judging.results import predicted_block
+    from stagesynth.judging.verdict import judge
+    from stagesynth.synthesis.capsizing import size_capacitors
 
     d, spec_obj = _design_of(design), _spec_or_none(spec)
     target = float(f_low)
@@ -400,8 +400,8 @@ def resize_capacitors(design: Design | str | Path, f_low: float,
 def _analysis_of(obj: Any, spec: Any = None) -> Analysis:
     if isinstance(obj, (Result, Assessment)) and spec is None:
         return obj.analysis
-    from .analysis import Analysis
-    from .analysis import analyze as _analyze
+    from stagesynth.engine.analysis import Analysis
+    from stagesynth.engine.analysis import analyze as _analyze
 
     if isinstance(obj, Analysis):
         return obj
@@ -410,9 +410,9 @@ def _analysis_of(obj: Any, spec: Any = None) -> Analysis:
 
 def _condition_system(analysis: Analysis, condition: int | str):
     """The linearized stage (batch of one) at nominal or one corner of the analysis."""
-    from .analysis import batch_values, condition_arrays, corner_conditions
-    from .circuit import compile_design
-    from .evaluate import evaluate
+    from stagesynth.engine.analysis import batch_values, condition_arrays, corner_conditions
+    from stagesynth.engine.circuit import compile_design
+    from stagesynth.engine.evaluate import evaluate
 
     design = analysis.design
     conds = corner_conditions(design, analysis.environment)
@@ -449,7 +449,7 @@ def to_lti(design: Any, condition: int | str = "nominal", spec: Any = None
     """
     import control
 
-    from .lti import state_space
+    from stagesynth.engine.lti import state_space
 
     m = state_space(_condition_system(_analysis_of(design, spec), condition))
     return control.ss(m.A, m.B, m.C, m.D, inputs=["emf"], outputs=["v_load"])
@@ -458,7 +458,7 @@ def to_lti(design: Any, condition: int | str = "nominal", spec: Any = None
 def to_network(design: Any, spec: Any = None, *, f_start: float | None = None,
                f_stop: float | None = None, points: int | None = None) -> skrf.Network:
     """The nominal stage as a scikit-rf two-port (S at 50 Ω), as in the Touchstone file."""
-    from .report.touchstone import stage_network
+    from stagesynth.report.touchstone import stage_network
 
     analysis = _analysis_of(design, spec)
     return stage_network(analysis.design, analysis, f_start, f_stop, points)
@@ -474,7 +474,7 @@ def _check_width(width: Any) -> None:
 def pulse_response(design: Any, width: float | None = None, spec: Any = None
                    ) -> PulseResponse:
     """Step edge (rise, overshoot, settling) and pulse tilt at the load (python-control)."""
-    from .pulse import pulse_response as _pulse
+    from stagesynth.engine.pulse import pulse_response as _pulse
 
     _check_width(width)
     try:

@@ -16,7 +16,7 @@ from typing import Annotated
 
 import typer
 
-from .errors import StageError
+from stagesynth.quantities.errors import StageError
 
 app = typer.Typer(
     name="stagesynth",
@@ -42,7 +42,7 @@ def user_errors(func):
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
-        from .fileio import COMMITTED
+        from stagesynth.contracts.fileio import COMMITTED
 
         done = len(COMMITTED)
         try:
@@ -66,7 +66,7 @@ def user_errors(func):
 
 def _version(value: bool) -> None:
     if value:
-        from . import __version__
+        from stagesynth import __version__
 
         typer.echo(f"stagesynth {__version__}")
         raise typer.Exit(0)
@@ -86,7 +86,7 @@ def _pulse_width(text: str | None) -> float | None:
     """--pulse-width as seconds (None: the default from the spec's f_low)."""
     if text is None:
         return None
-    from .units import parse_quantity
+    from stagesynth.quantities.units import parse_quantity
 
     width = parse_quantity(text, "s", key="--pulse-width")
     if not width > 0:
@@ -126,8 +126,8 @@ def analyze(
     With --spec, every requirement is judged; a spec that asks for a yield gets a
     Monte Carlo of 10,000 units unless --yield N says otherwise.
     """
-    from . import api
-    from .textout import analysis_table
+    from stagesynth import api
+    from stagesynth.judging.textout import analysis_table
 
     if units is not None and units < 1:
         raise StageError(f"{units} is not a number of units", key="--yield",
@@ -195,8 +195,8 @@ def design(
     ] = None,
 ) -> None:
     """Synthesize a stage that meets SPEC.toml; write design.json and the report to DIR."""
-    from . import api
-    from .fileio import OutputDir, digest
+    from stagesynth import api
+    from stagesynth.contracts.fileio import OutputDir, digest
 
     if prefer not in api.PREFER:
         raise StageError(f"{prefer!r} is not a choice", key="--prefer",
@@ -204,12 +204,12 @@ def design(
     width = _pulse_width(pulse_width)
     spec = _warned(api.load_spec(spec_file))
     if circuit is not None:
-        from .topologies import FAMILIES
+        from stagesynth.synthesis.topologies import FAMILIES
 
         if circuit not in FAMILIES:
             raise StageError(f"{circuit!r} is not a circuit family", key="--circuit",
                              accepted=", ".join(FAMILIES))
-    from .reach import unreachable
+    from stagesynth.synthesis.reach import unreachable
 
     bounds = unreachable(spec)
     if bounds:  # provably out of reach: say so at once, write nothing
@@ -228,7 +228,7 @@ def design(
         written = api.write_report(result, outdir, pulse_width=width, report=not no_report)
         # files of an earlier run here that this run does not make again
         outdir.drop_stale([p.name for p in written], api.report_files())
-    from .textout import analysis_table
+    from stagesynth.judging.textout import analysis_table
 
     typer.echo(analysis_table(result.analysis, result.verdict))
     typer.echo("")
@@ -281,10 +281,10 @@ def caps(
     The report, plots and parts list made from the old design in the same folder are
     made again from the new one (or, with --no-report, listed as out of date).
     """
-    from . import api
-    from .fileio import OutputDir
-    from .textout import fmt
-    from .units import parse_quantity
+    from stagesynth import api
+    from stagesynth.contracts.fileio import OutputDir
+    from stagesynth.judging.textout import fmt
+    from stagesynth.quantities.units import parse_quantity
 
     target = parse_quantity(f_low, "Hz", key="--f-low")
     if target <= 0:
@@ -322,8 +322,8 @@ def _write_caps_result(outdir, name: str, new, spec_path, spec_obj, no_report: b
     Returns (refreshed names, names left out of date). The manifest says which design
     each file was made from and which spec it was judged against.
     """
-    from . import api
-    from .fileio import digest
+    from stagesynth import api
+    from stagesynth.contracts.fileio import digest
 
     text = new.to_json()
     old = outdir.root / name
@@ -363,13 +363,13 @@ def report(
     ] = None,
 ) -> None:
     """Write the report, plots, schematic, parts list and Touchstone file for a design."""
-    from . import api
+    from stagesynth import api
 
     width = _pulse_width(pulse_width)
     d = api.load_design(design_file)
     spec_obj = _warned(api.load_spec(spec)) if spec is not None else None
     result = api.analyze(d, spec_obj, units=0)
-    from .fileio import OutputDir, digest
+    from stagesynth.contracts.fileio import OutputDir, digest
 
     with OutputDir(out, force=force) as outdir:
         outdir.source = digest(design_file.read_bytes())
@@ -398,14 +398,14 @@ def plot(
     ] = False,
 ) -> None:
     """Redraw the Bode and impedance plots of a design (after editing a value)."""
-    from . import api
-    from .fileio import OutputDir
-    from .report.bundle import write_plots
+    from stagesynth import api
+    from stagesynth.contracts.fileio import OutputDir
+    from stagesynth.report.bundle import write_plots
 
     d = api.load_design(design_file)
     spec_obj = _warned(api.load_spec(spec)) if spec is not None else None
     result = api.analyze(d, spec_obj, units=0)
-    from .fileio import digest
+    from stagesynth.contracts.fileio import digest
 
     with OutputDir(out or design_file.parent, force=force) as outdir:
         outdir.source = digest(design_file.read_bytes())
@@ -417,8 +417,8 @@ def plot(
 @user_errors
 def presets() -> None:
     """List the built-in generic transistors and their data (use: preset = "NAME")."""
-    from .device import PRESETS
-    from .units import format_quantity as q
+    from stagesynth.contracts.device import PRESETS
+    from stagesynth.quantities.units import format_quantity as q
 
     def hfe(d):
         return f"{d.hfe_min:g} / {d.hfe_nominal:g} / {d.hfe_max:g}"
@@ -455,12 +455,12 @@ def new(
     force: Annotated[bool, typer.Option("--force", help="Overwrite an existing file.")] = False,
 ) -> None:
     """Write a commented spec template to start from."""
-    from .spec import spec_template
+    from stagesynth.contracts.spec import spec_template
 
     if path.exists() and not force:
         raise StageError("exists; not overwritten", file=str(path),
                          accepted="a new file name, or --force to replace it")
-    from .fileio import write_text_atomic
+    from stagesynth.contracts.fileio import write_text_atomic
 
     write_text_atomic(path, spec_template())
     typer.echo(f"wrote {path}: edit it, then run: stagesynth design {path} --out DIR")

@@ -12,8 +12,8 @@ from dataclasses import replace
 
 import pytest
 
-from stagesynth.device import Device
-from stagesynth.netlist import Design, Part
+from stagesynth.contracts.device import Device
+from stagesynth.contracts.netlist import Design, Part
 
 # Invented small-signal types in the range of common parts (no real part number).
 TEST_NPN = Device(

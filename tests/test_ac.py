@@ -29,12 +29,12 @@ from conftest import (
 from skrf.media import DefinedGammaZ0
 from sympy.polys.matrices import DomainMatrix
 
-from stagesynth.ac import linearize
-from stagesynth.analysis import Analysis, analyze
-from stagesynth.circuit import compile_design
-from stagesynth.dc import solve_dc
-from stagesynth.device import Device
-from stagesynth.netlist import Design, Part
+from stagesynth.contracts.device import Device
+from stagesynth.contracts.netlist import Design, Part
+from stagesynth.engine.ac import linearize
+from stagesynth.engine.analysis import Analysis, analyze
+from stagesynth.engine.circuit import compile_design
+from stagesynth.engine.dc import solve_dc
 
 # CODATA 2018 exact values of k and q.
 K_B = 1.380649e-23

@@ -103,7 +103,7 @@ def test_dict_spec_and_to_dict_are_plain_json(tmp_path):
 
 def test_report_from_a_design(tmp_path):
     """write_report on an edited design writes the report files, refusing foreign files."""
-    from stagesynth.errors import OutputExistsError
+    from stagesynth.quantities.errors import OutputExistsError
 
     d = fixtures.npn_ce().with_value("R4", "220")
     (tmp_path / "report.md").write_text("mine")

@@ -21,8 +21,8 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from test_report import DESIGN, SPEC
 
-from stagesynth.analysis import analyze
-from stagesynth.netlist import design_from_dict
+from stagesynth.contracts.netlist import design_from_dict
+from stagesynth.engine.analysis import analyze
 from stagesynth.report.bom import bom_csv, bom_rows
 
 PREFIX = {"p": 1e-12, "n": 1e-9, "u": 1e-6, "m": 1e-3, "": 1.0, "k": 1e3, "M": 1e6, "G": 1e9}

@@ -23,9 +23,9 @@ sys.path.insert(0, str(Path(__file__).parent))
 from independent import designs as ds
 from independent import refmodel as rm
 
-from stagesynth.analysis import Environment
-from stagesynth.capsizing import size_capacitors
-from stagesynth.netlist import design_from_dict
+from stagesynth.contracts.netlist import design_from_dict
+from stagesynth.engine.analysis import Environment
+from stagesynth.synthesis.capsizing import size_capacitors
 
 ROOT = Path(__file__).resolve().parents[1]
 CAP_TOLERANCE = 0.1  # what `caps` assumes without --spec (its help: 10 %)

@@ -17,7 +17,7 @@ from pathlib import Path
 import pytest
 from conftest import FIXTURE_BUILDERS, npn_ce
 
-from stagesynth.netlist import Design, Part
+from stagesynth.contracts.netlist import Design, Part
 
 REPO = Path(__file__).resolve().parents[1]
 HEAVY = ("scipy", "control", "skrf", "matplotlib", "schemdraw")

@@ -27,10 +27,10 @@ from conftest import (
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from stagesynth.circuit import Circuit, compile_design
-from stagesynth.dc import DcBatch, solve_dc
-from stagesynth.device import Device
-from stagesynth.netlist import Design, Part
+from stagesynth.contracts.device import Device
+from stagesynth.contracts.netlist import Design, Part
+from stagesynth.engine.circuit import Circuit, compile_design
+from stagesynth.engine.dc import DcBatch, solve_dc
 
 # CODATA 2018 exact values of k and q (SI redefinition of 2019).
 K_B = 1.380649e-23

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import pytest
 
-from stagesynth.spec import load_spec
+from stagesynth.contracts.spec import load_spec
 
 ROOT = Path(__file__).resolve().parents[1]
 SPECS = ROOT / "specs"

@@ -23,11 +23,11 @@ import numpy as np
 import pytest
 from independent import refmodel as rm
 
-from stagesynth.analysis import analyze
-from stagesynth.device import Device, thermal_voltage
-from stagesynth.netlist import Design, Part
-from stagesynth.spec import Load, Requirements, Source, Spec, Supply
-from stagesynth.verdict import judge
+from stagesynth.contracts.device import Device, thermal_voltage
+from stagesynth.contracts.netlist import Design, Part
+from stagesynth.contracts.spec import Load, Requirements, Source, Spec, Supply
+from stagesynth.engine.analysis import analyze
+from stagesynth.judging.verdict import judge
 
 # An invented transistor type with the charge-control data (no real part number).
 FT_NPN = Device(
@@ -115,8 +115,8 @@ def test_ft_against_collector_current_follows_charge_control(ic: float) -> None:
 
 
 def test_cpi_agrees_with_the_independent_reference() -> None:
-    # Contract section 2 (second release), written twice: stagesynth.device and refmodel.
-    from stagesynth.device import c_pi_of
+    # Contract section 2 (second release), written twice: stagesynth.contracts.device and refmodel.
+    from stagesynth.contracts.device import c_pi_of
 
     ref_dev = rm.device_from_dict(FT_NPN.to_design_dict())
     for ic in (1e-6, 40e-6, 1e-3, 30e-3):

@@ -15,13 +15,13 @@ import pytest
 import sympy as sp
 from conftest import ce_follower, npn_ce, pnp_ce
 
-from stagesynth.analysis import analyze, batch_values
-from stagesynth.circuit import compile_design
-from stagesynth.device import Device, thermal_voltage
-from stagesynth.distortion import _dc_subset
-from stagesynth.harmonic import LargeSignal, solve_periodic
-from stagesynth.netlist import Design, Part
-from stagesynth.volterra import harmonics
+from stagesynth.contracts.device import Device, thermal_voltage
+from stagesynth.contracts.netlist import Design, Part
+from stagesynth.engine.analysis import analyze, batch_values
+from stagesynth.engine.circuit import compile_design
+from stagesynth.engine.distortion import _dc_subset
+from stagesynth.engine.harmonic import LargeSignal, solve_periodic
+from stagesynth.engine.volterra import harmonics
 
 # An idealized invented transistor: no base resistance, negligible Early effect and
 # capacitances, large hFE, so the stage is the bare exponential of the closed forms.

@@ -19,10 +19,10 @@ import pytest
 from conftest import ce_follower, npn_ce
 from independent import refmodel as rm
 
-from stagesynth.analysis import analyze, batch_values
-from stagesynth.circuit import compile_design
-from stagesynth.distortion import _dc_subset
-from stagesynth.harmonic import LargeSignal, solve_periodic
+from stagesynth.engine.analysis import analyze, batch_values
+from stagesynth.engine.circuit import compile_design
+from stagesynth.engine.distortion import _dc_subset
+from stagesynth.engine.harmonic import LargeSignal, solve_periodic
 
 STEPS = 256  # per period: the BDF2 error at 3f is about (3ωh)²/3 = 2e-3 relative (0.02 dB)
 

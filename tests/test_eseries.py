@@ -8,8 +8,8 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from stagesynth.errors import StageError
-from stagesynth.eseries import (
+from stagesynth.quantities.errors import StageError
+from stagesynth.quantities.eseries import (
     SERIES,
     is_standard,
     nearest,

@@ -18,12 +18,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from stagesynth.analysis import analyze
-from stagesynth.netlist import design_from_dict
-from stagesynth.spec import Spec, spec_from_mapping
-from stagesynth.synth import SynthesisResult, _synthesize_family
-from stagesynth.topologies import ce_ce, ce_ef, common_emitter, ef_ce
-from stagesynth.verdict import judge
+from stagesynth.contracts.netlist import design_from_dict
+from stagesynth.contracts.spec import Spec, spec_from_mapping
+from stagesynth.engine.analysis import analyze
+from stagesynth.judging.verdict import judge
+from stagesynth.synthesis.synth import SynthesisResult, _synthesize_family
+from stagesynth.synthesis.topologies import ce_ce, ce_ef, common_emitter, ef_ce
 
 sys.path.insert(0, str(Path(__file__).parent))
 from independent import refmodel

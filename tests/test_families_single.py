@@ -21,12 +21,12 @@ from typing import Any
 
 import pytest
 
-from stagesynth.analysis import analyze
-from stagesynth.netlist import design_from_dict
-from stagesynth.spec import Spec, spec_from_mapping
-from stagesynth.synth import SynthesisResult, _remedied
-from stagesynth.topologies import ce_feedback, common_base, ef_bootstrap, emitter_follower
-from stagesynth.verdict import judge
+from stagesynth.contracts.netlist import design_from_dict
+from stagesynth.contracts.spec import Spec, spec_from_mapping
+from stagesynth.engine.analysis import analyze
+from stagesynth.judging.verdict import judge
+from stagesynth.synthesis.synth import SynthesisResult, _remedied
+from stagesynth.synthesis.topologies import ce_feedback, common_base, ef_bootstrap, emitter_follower
 
 sys.path.insert(0, str(Path(__file__).parent))
 from independent import refmodel as rm

@@ -16,10 +16,10 @@ from pathlib import Path
 
 import pytest
 
+from stagesynth.contracts.spec import spec_from_mapping
 from stagesynth.report import schematic
-from stagesynth.spec import spec_from_mapping
-from stagesynth.synth import _synthesize_family
-from stagesynth.topologies import FAMILIES, fb_pair
+from stagesynth.synthesis.synth import _synthesize_family
+from stagesynth.synthesis.topologies import FAMILIES, fb_pair
 
 sys.path.insert(0, str(Path(__file__).parent))
 from independent import refmodel

@@ -22,9 +22,9 @@ sys.path.insert(0, str(Path(__file__).parent))
 from test_poles import DESIGNS, _match
 
 import stagesynth as ss
-from stagesynth.analysis import analyze
-from stagesynth.netlist import Design, Part
-from stagesynth.polezero import pole_zero_map
+from stagesynth.contracts.netlist import Design, Part
+from stagesynth.engine.analysis import analyze
+from stagesynth.engine.polezero import pole_zero_map
 
 NAMES = sorted(DESIGNS)
 

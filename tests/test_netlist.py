@@ -18,8 +18,8 @@ from conftest import FIXTURE_BUILDERS, npn_ce
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from stagesynth.errors import StageError
-from stagesynth.netlist import FORMAT, design_from_dict, load_design
+from stagesynth.contracts.netlist import FORMAT, design_from_dict, load_design
+from stagesynth.quantities.errors import StageError
 
 
 def fixture_dict(name: str = "npn_ce") -> dict:

@@ -17,11 +17,11 @@ import numpy as np
 import pytest
 from conftest import TEST_NPN
 
-from stagesynth.analysis import Environment, analyze, batch_values
-from stagesynth.circuit import compile_design
-from stagesynth.evaluate import Conditions, evaluate
-from stagesynth.netlist import Design, Part
-from stagesynth.noise import NoisePlan, spectrum
+from stagesynth.contracts.netlist import Design, Part
+from stagesynth.engine.analysis import Environment, analyze, batch_values
+from stagesynth.engine.circuit import compile_design
+from stagesynth.engine.evaluate import Conditions, evaluate
+from stagesynth.engine.noise import NoisePlan, spectrum
 
 K_CODATA = 1.380649e-23  # J/K, CODATA 2018 (exact)
 Q_CODATA = 1.602176634e-19  # C, CODATA 2018 (exact)

@@ -19,11 +19,11 @@ import numpy as np
 import pytest
 from conftest import TEST_NPN
 
-from stagesynth.analysis import Environment, analyze, batch_values
-from stagesynth.circuit import compile_design
-from stagesynth.evaluate import Conditions, evaluate
-from stagesynth.netlist import Design, Part
-from stagesynth.noise import NoisePlan, spectrum
+from stagesynth.contracts.netlist import Design, Part
+from stagesynth.engine.analysis import Environment, analyze, batch_values
+from stagesynth.engine.circuit import compile_design
+from stagesynth.engine.evaluate import Conditions, evaluate
+from stagesynth.engine.noise import NoisePlan, spectrum
 
 K = 1.380649e-23  # CODATA 2018
 Q = 1.602176634e-19

@@ -15,9 +15,9 @@ from dataclasses import replace
 import pytest
 from conftest import TEST_NPN, npn_ce
 
-from stagesynth.analysis import Environment, analyze
-from stagesynth.lownoise import floor_density2
-from stagesynth.spec import spec_template
+from stagesynth.contracts.spec import spec_template
+from stagesynth.engine.analysis import Environment, analyze
+from stagesynth.synthesis.lownoise import floor_density2
 
 
 @pytest.mark.parametrize("rs", [50.0, 1e3, 10e3])

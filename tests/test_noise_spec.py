@@ -8,8 +8,8 @@ import tomllib
 
 import pytest
 
-from stagesynth.errors import StageError
-from stagesynth.spec import spec_from_mapping, spec_template, spec_to_toml
+from stagesynth.contracts.spec import spec_from_mapping, spec_template, spec_to_toml
+from stagesynth.quantities.errors import StageError
 
 BASE = {
     "supply": {"voltage": "12 V"},

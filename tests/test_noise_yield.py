@@ -9,11 +9,11 @@ import math
 
 import numpy as np
 
-from stagesynth.analysis import analyze
-from stagesynth.circuit import compile_design
-from stagesynth.montecarlo import monte_carlo, sample_units
-from stagesynth.netlist import design_from_dict
-from stagesynth.spec import spec_from_mapping
+from stagesynth.contracts.netlist import design_from_dict
+from stagesynth.contracts.spec import spec_from_mapping
+from stagesynth.engine.analysis import analyze
+from stagesynth.engine.circuit import compile_design
+from stagesynth.judging.montecarlo import monte_carlo, sample_units
 from tests.independent import designs, refmodel, refnoise
 
 SEED = 4242

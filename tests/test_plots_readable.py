@@ -19,8 +19,8 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from test_report import DESIGN, SPEC, chromium
 
-from stagesynth.analysis import analyze
-from stagesynth.netlist import design_from_dict
+from stagesynth.contracts.netlist import design_from_dict
+from stagesynth.engine.analysis import analyze
 from stagesynth.report.document import inline_svg
 from stagesynth.report.plots import (
     bode_figure,

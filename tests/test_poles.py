@@ -2,7 +2,7 @@
 
 The outside judge is python-control: each stage is turned into an ordinary state-space
 model (descriptor system -> state space by eliminating the algebraic part, done here in
-the test from the engine's nodal matrices, independently of stagesynth.polezero),
+the test from the engine's nodal matrices, independently of stagesynth.engine.polezero),
 and python-control's own poles, zeros and frequency response are compared with ours.
 """
 
@@ -20,9 +20,9 @@ sys.path.insert(0, str(Path(__file__).parent))
 import conftest as fixtures
 from independent import designs as ds
 
-from stagesynth.analysis import analyze
-from stagesynth.netlist import Design, design_from_dict
-from stagesynth.polezero import corner_estimates, pole_zero_map
+from stagesynth.contracts.netlist import Design, design_from_dict
+from stagesynth.engine.analysis import analyze
+from stagesynth.engine.polezero import corner_estimates, pole_zero_map
 
 
 def _designs() -> dict[str, Design]:

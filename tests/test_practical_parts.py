@@ -16,17 +16,17 @@ from hypothesis import strategies as st
 from typer.testing import CliRunner
 
 from stagesynth.cli import app
-from stagesynth.errors import StageError
-from stagesynth.leakage import (
+from stagesynth.contracts.spec import load_spec, spec_from_mapping, spec_to_toml
+from stagesynth.quantities.errors import StageError
+from stagesynth.synthesis.leakage import (
     BIAS_SHIFT_MAX,
     FILM_MAX,
     capacitor_kinds,
     leakage_current,
     rated_voltage,
 )
-from stagesynth.spec import load_spec, spec_from_mapping, spec_to_toml
-from stagesynth.synth import synthesize
-from stagesynth.topologies import common_emitter
+from stagesynth.synthesis.synth import synthesize
+from stagesynth.synthesis.topologies import common_emitter
 
 sys.path.insert(0, str(Path(__file__).parent))
 from independent import refmodel
@@ -113,7 +113,7 @@ def test_divider_side_electrolytic_refused_where_leakage_matters():
     """A 10 µF electrolytic into a 57 kΩ divider (x5 the stage's own) moves IC by more than
     1 %: film or ceramic required; the 100 µF emitter bypass at about 1 mA may be an
     electrolytic; and the parts list says so."""
-    from stagesynth.analysis import analyze
+    from stagesynth.engine.analysis import analyze
     from stagesynth.report.bom import bom_rows
 
     design, spec = _ce_dict(100e-6, rth_scale=5.0)

@@ -24,12 +24,12 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from test_report import DESIGN, SPEC
 
-from stagesynth.analysis import analyze
-from stagesynth.netlist import design_from_dict
+from stagesynth.contracts.netlist import design_from_dict
+from stagesynth.engine.analysis import analyze
+from stagesynth.judging.textout import analysis_table, fmt, margin_text
+from stagesynth.judging.verdict import judge
+from stagesynth.quantities.units import format_number, format_quantity
 from stagesynth.report.document import report_markdown
-from stagesynth.textout import analysis_table, fmt, margin_text
-from stagesynth.units import format_number, format_quantity
-from stagesynth.verdict import judge
 
 REPO = Path(__file__).resolve().parents[1]
 # BIPM SI Brochure table 7, the prefixes a small-signal stage can need (µ is U+00B5)
@@ -175,7 +175,7 @@ def test_infeasible_summary_agrees_with_the_design_it_wrote(tmp_path):
 def test_json_checks_carry_the_readable_margin(judged):
     """analyze --json: each check has its headroom in its own unit and the status words,
     "ok" exactly where it passes (spec-format.md section 4: `ok` per check)."""
-    from stagesynth.results import analysis_to_dict
+    from stagesynth.judging.results import analysis_to_dict
 
     _, analysis, verdict = judged
     out = analysis_to_dict(analysis, verdict)

@@ -17,8 +17,8 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from independent import refmodel as rm
 
-from stagesynth.spec import spec_from_mapping
-from stagesynth.synth import synthesize
+from stagesynth.contracts.spec import spec_from_mapping
+from stagesynth.synthesis.synth import synthesize
 
 CASES = {
     # a microphone-style preamp on a rectified, unregulated 15 V rail (120 Hz ripple)

@@ -24,17 +24,17 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from test_poles import state_space
 
-from stagesynth.analysis import analyze
-from stagesynth.device import PRESETS
-from stagesynth.errors import OutputExistsError
-from stagesynth.fileio import OutputDir
-from stagesynth.netlist import design_from_dict
+from stagesynth.contracts.device import PRESETS
+from stagesynth.contracts.fileio import OutputDir
+from stagesynth.contracts.netlist import design_from_dict
+from stagesynth.contracts.spec import Load, Parts, Requirements, Source, Spec, Supply
+from stagesynth.engine.analysis import analyze
+from stagesynth.judging.verdict import judge
+from stagesynth.quantities.errors import OutputExistsError
 from stagesynth.report.bom import bom_rows
 from stagesynth.report.bundle import BUNDLE_FILES, PLOT_FILES, write_bundle, write_plots
 from stagesynth.report.document import report_markdown
 from stagesynth.report.plots import bode_data, bode_figure
-from stagesynth.spec import Load, Parts, Requirements, Source, Spec, Supply
-from stagesynth.verdict import judge
 
 CHROMIUM_NAMES = ("chromium", "chromium-browser", "google-chrome", "chrome")
 
@@ -214,7 +214,7 @@ def test_bom_stresses_follow_ohm_and_joule(case):
             if row["type"].startswith("film or ceramic required"):
                 # an electrolytic's leakage (common practice, 0.01·C·V, >= 3 µA) would move
                 # the bias by more than 1 %: the engine's leakage verdict says so
-                from stagesynth.leakage import capacitor_kinds
+                from stagesynth.synthesis.leakage import capacitor_kinds
 
                 assert not capacitor_kinds(design)[part.ref].electrolytic_ok
                 continue

@@ -18,9 +18,9 @@ from typer.testing import CliRunner
 
 from stagesynth import api
 from stagesynth.cli import app
-from stagesynth.errors import StageError
-from stagesynth.fileio import OutputDir
-from stagesynth.units import parse_gain, parse_quantity, parse_temperature
+from stagesynth.contracts.fileio import OutputDir
+from stagesynth.quantities.errors import StageError
+from stagesynth.quantities.units import parse_gain, parse_quantity, parse_temperature
 
 ROOT = Path(__file__).resolve().parents[1]
 SPEC_FILE = ROOT / "specs" / "hydrophone-front-end.toml"

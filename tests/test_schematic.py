@@ -16,16 +16,21 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from stagesynth.analysis import analyze
-from stagesynth.device import PRESETS
-from stagesynth.netlist import Design, Part
+from stagesynth.contracts.device import PRESETS
+from stagesynth.contracts.netlist import Design, Part
+from stagesynth.contracts.spec import spec_from_mapping
+from stagesynth.engine.analysis import analyze
 from stagesynth.report import schematic
 from stagesynth.report.bom import bom_rows
 from stagesynth.report.document import schematic_svg
 from stagesynth.report.schematic import draw_schematic, save_schematic
-from stagesynth.spec import spec_from_mapping
-from stagesynth.topologies import ce_feedback, common_emitter, ef_bootstrap, emitter_follower
-from stagesynth.topologies import common_base as common_base_family
+from stagesynth.synthesis.topologies import (
+    ce_feedback,
+    common_emitter,
+    ef_bootstrap,
+    emitter_follower,
+)
+from stagesynth.synthesis.topologies import common_base as common_base_family
 
 SVG_NS = "{http://www.w3.org/2000/svg}"
 

@@ -10,9 +10,8 @@ from pathlib import Path
 
 import pytest
 
-from stagesynth.device import PRESETS
-from stagesynth.errors import StageError
-from stagesynth.spec import (
+from stagesynth.contracts.device import PRESETS
+from stagesynth.contracts.spec import (
     device_from_mapping,
     load_device_file,
     load_spec,
@@ -20,6 +19,7 @@ from stagesynth.spec import (
     spec_template,
     spec_to_toml,
 )
+from stagesynth.quantities.errors import StageError
 
 # The example of spec-format.md section 1, verbatim in its values.
 CONTRACT_EXAMPLE = """
@@ -158,7 +158,7 @@ def test_template_loads_and_round_trips(tmp_path: Path) -> None:
 
 def test_template_documents_every_key() -> None:
     # Every key the loader accepts appears in the template, so `stagesynth new` shows them all.
-    from stagesynth.spec import _SECTION_KEYS, DEVICE_KEYS
+    from stagesynth.contracts.spec import _SECTION_KEYS, DEVICE_KEYS
 
     text = spec_template()
     for section, keys in {**_SECTION_KEYS, "transistor": DEVICE_KEYS}.items():

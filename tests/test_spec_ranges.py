@@ -26,12 +26,12 @@ sys.path.insert(0, str(Path(__file__).parent))
 from independent import refmodel
 from test_report import DESIGN, SPEC
 
-from stagesynth.analysis import Environment, analyze, corner_conditions
-from stagesynth.errors import StageError
-from stagesynth.montecarlo import sample_units
-from stagesynth.netlist import design_from_dict
-from stagesynth.spec import load_spec, spec_from_mapping, spec_to_toml
-from stagesynth.verdict import judge
+from stagesynth.contracts.netlist import design_from_dict
+from stagesynth.contracts.spec import load_spec, spec_from_mapping, spec_to_toml
+from stagesynth.engine.analysis import Environment, analyze, corner_conditions
+from stagesynth.judging.montecarlo import sample_units
+from stagesynth.judging.verdict import judge
+from stagesynth.quantities.errors import StageError
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -133,7 +133,7 @@ def test_return_loss_matches_scikit_rf_on_the_reference_model():
     spec = replace(SPEC, require=replace(SPEC.require, return_loss=1.0))
     analysis = analyze(design, spec)
     check = judge(analysis, spec).check("return_loss")
-    from stagesynth.results import analysis_to_dict
+    from stagesynth.judging.results import analysis_to_dict
 
     nominal = analysis_to_dict(analysis)["return_loss"]
     band = (spec.require.f_low, spec.require.f_high)
@@ -147,7 +147,7 @@ def test_return_loss_matches_scikit_rf_on_the_reference_model():
 
 def test_ranges_are_judged_on_both_edges():
     design = design_from_dict(DESIGN, "hydrophone.json")
-    from stagesynth.results import analysis_to_dict
+    from stagesynth.judging.results import analysis_to_dict
 
     analysis = analyze(design, SPEC)
     out = analysis_to_dict(analysis)

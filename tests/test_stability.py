@@ -1,4 +1,4 @@
-"""Bias stability factors and thermal safety (stagesynth.stability).
+"""Bias stability factors and thermal safety (stagesynth.judging.stability).
 
 Checked against the textbook closed forms of the divider-biased common emitter
 (Millman & Halkias, *Integrated Electronics*, bias-stability chapter; Sedra & Smith,
@@ -21,11 +21,11 @@ from conftest import TEST_NPN, _c, _q, _r, ce_follower, emitter_follower, mirror
 from conftest import pnp_ce as pnp_ce_builder
 from scipy.optimize import brentq
 
-from stagesynth.analysis import Environment, analyze, batch_values
-from stagesynth.circuit import compile_design
-from stagesynth.dc import solve_dc
-from stagesynth.netlist import Design
-from stagesynth.stability import (
+from stagesynth.contracts.netlist import Design
+from stagesynth.engine.analysis import Environment, analyze, batch_values
+from stagesynth.engine.circuit import compile_design
+from stagesynth.engine.dc import solve_dc
+from stagesynth.judging.stability import (
     derated_power,
     junction_max,
     robustness_dict,

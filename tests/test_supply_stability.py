@@ -20,10 +20,10 @@ sys.path.insert(0, str(Path(__file__).parent))
 from conftest import TEST_NPN
 from test_poles import state_space
 
-from stagesynth.analysis import analyze
-from stagesynth.device import thermal_voltage
-from stagesynth.netlist import Design, Part
-from stagesynth.polezero import pole_zero_map
+from stagesynth.contracts.device import thermal_voltage
+from stagesynth.contracts.netlist import Design, Part
+from stagesynth.engine.analysis import analyze
+from stagesynth.engine.polezero import pole_zero_map
 
 # an ideal-ish transistor: no Early effect (ro -> infinity), no base resistance
 IDEAL = replace(TEST_NPN, early_voltage=1e9, r_bb=0.0, hfe_min=150.0, hfe_max=150.0,
@@ -190,7 +190,7 @@ def test_positive_feedback_is_unstable_and_python_control_agrees():
     for p in rhp:
         assert np.min(np.abs(theirs_rhp - p)) < 1e-4 * abs(p), (p, theirs_rhp)
     # the batched stability check agrees with the pole table
-    from stagesynth.peaking import stability
+    from stagesynth.engine.peaking import stability
 
     st = stability(a.system, np.array([a.midband]))
     assert not bool(st.stable[0])

@@ -30,12 +30,12 @@ from hypothesis import strategies as st
 sys.path.insert(0, str(Path(__file__).parent))
 from independent import refmodel as rm
 
-from stagesynth.analysis import analyze
-from stagesynth.device import PRESETS
-from stagesynth.spec import Spec, load_spec, spec_from_mapping
-from stagesynth.synth import MARGIN_CAP, TIE, SynthesisResult, synthesize
-from stagesynth.topologies import common_emitter as ce
-from stagesynth.verdict import Verdict, judge
+from stagesynth.contracts.device import PRESETS
+from stagesynth.contracts.spec import Spec, load_spec, spec_from_mapping
+from stagesynth.engine.analysis import analyze
+from stagesynth.judging.verdict import Verdict, judge
+from stagesynth.synthesis.synth import MARGIN_CAP, TIE, SynthesisResult, synthesize
+from stagesynth.synthesis.topologies import common_emitter as ce
 
 ROOT = Path(__file__).resolve().parents[1]
 SPECS = ROOT / "specs"

@@ -10,9 +10,9 @@ import tomllib
 
 import pytest
 
-from stagesynth.errors import StageError
-from stagesynth.spec import spec_from_mapping, spec_to_toml
-from stagesynth.units import parse_thd
+from stagesynth.contracts.spec import spec_from_mapping, spec_to_toml
+from stagesynth.quantities.errors import StageError
+from stagesynth.quantities.units import parse_thd
 
 BASE = {
     "supply": {"voltage": "12 V"},

@@ -20,8 +20,8 @@ sys.path.insert(0, str(Path(__file__).parent))
 import conftest as fixtures
 from independent import designs as ds
 
-from stagesynth.analysis import analyze
-from stagesynth.netlist import Design, design_from_dict
+from stagesynth.contracts.netlist import Design, design_from_dict
+from stagesynth.engine.analysis import analyze
 from stagesynth.report.touchstone import (
     stage_network,
     stage_touchstone,

@@ -8,8 +8,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from stagesynth.errors import StageError
-from stagesynth.units import (
+from stagesynth.quantities.errors import StageError
+from stagesynth.quantities.units import (
     UNITS,
     format_iec60062,
     format_quantity,

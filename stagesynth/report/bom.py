@@ -13,12 +13,12 @@ import math
 from collections.abc import Mapping
 from typing import TYPE_CHECKING
 
-from ..units import format_quantity
+from stagesynth.quantities.units import format_quantity
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
-    from ..analysis import Analysis, PointResult
-    from ..netlist import Design, Part
-    from ..spec import Spec
+    from stagesynth.contracts.netlist import Design, Part
+    from stagesynth.contracts.spec import Spec
+    from stagesynth.engine.analysis import Analysis, PointResult
 
 # Standard DC working voltages of capacitors (common practice, the usual catalogue steps).
 CAP_VOLTAGE_RATINGS = (6.3, 10.0, 16.0, 25.0, 35.0, 50.0, 63.0, 100.0, 160.0, 200.0, 250.0,
@@ -69,7 +69,7 @@ def dc_across(design: Design, point: PointResult, a: str, b: str) -> float:
 
 def _series_of(part: Part, spec: Spec | None) -> tuple[str, str, str]:
     """(series, tolerance, note): the spec's series when given, else the coarsest that fits."""
-    from .. import eseries
+    from stagesynth.quantities import eseries
 
     value = float(part.value)
     if spec is not None:
@@ -85,7 +85,7 @@ def _series_of(part: Part, spec: Spec | None) -> tuple[str, str, str]:
 
 
 def _series_without_spec(part: Part, value: float, tolerance: float | None = None):
-    from .. import eseries
+    from stagesynth.quantities import eseries
 
     tol_text = format_quantity(tolerance, "%") if tolerance is not None else ""
     for name in RESISTOR_SERIES if part.kind == "resistor" else CAPACITOR_SERIES:
@@ -135,8 +135,8 @@ _LEAK_CACHE: list = []  # (design, kinds) of the last design asked: one engine c
 
 def leakage_kind(design: Design, part: Part):
     """The engine's leakage verdict for one capacitor (leakage.py), or None if unavailable."""
-    from ..errors import ConvergenceError
-    from ..leakage import capacitor_kinds
+    from stagesynth.quantities.errors import ConvergenceError
+    from stagesynth.synthesis.leakage import capacitor_kinds
 
     if not _LEAK_CACHE or _LEAK_CACHE[0][0] is not design:
         try:

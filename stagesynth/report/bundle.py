@@ -14,11 +14,11 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
-    from ..analysis import Analysis
-    from ..fileio import OutputDir
-    from ..netlist import Design
-    from ..spec import Spec
-    from ..verdict import Verdict
+    from stagesynth.contracts.fileio import OutputDir
+    from stagesynth.contracts.netlist import Design
+    from stagesynth.contracts.spec import Spec
+    from stagesynth.engine.analysis import Analysis
+    from stagesynth.judging.verdict import Verdict
 
 PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg", "ripple.svg")
 BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
@@ -28,7 +28,13 @@ BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.c
 
 def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
     """The plot files' contents (one figure each for Bode and impedance)."""
-    from .plots import bode_figure, figure_png, figure_svg, impedance_figure, ripple_figure
+    from stagesynth.report.plots import (
+        bode_figure,
+        figure_png,
+        figure_svg,
+        impedance_figure,
+        ripple_figure,
+    )
 
     bode = bode_figure(analysis, spec)
     imp = impedance_figure(analysis, spec)
@@ -63,10 +69,10 @@ def write_bundle(
     `pz`: the pole/zero map when the caller has it already (it is not computed twice);
     `pulse`: the pulse response to show (default: the engine's, default pulse width).
     """
-    from ..polezero import pole_zero_map
-    from .bom import bom_csv, bom_rows
-    from .document import report_html, report_markdown, schematic_svg
-    from .touchstone import stage_touchstone
+    from stagesynth.engine.polezero import pole_zero_map
+    from stagesynth.report.bom import bom_csv, bom_rows
+    from stagesynth.report.document import report_html, report_markdown, schematic_svg
+    from stagesynth.report.touchstone import stage_touchstone
 
     out.check(list(BUNDLE_FILES))
     contents: dict[str, bytes] = _plots(analysis, spec)
@@ -78,12 +84,12 @@ def write_bundle(
     }
     rows = bom_rows(design, analysis, spec)
     pz = pz if pz is not None else pole_zero_map(analysis)
-    from ..robustness import assess_robustness
+    from stagesynth.judging.robustness import assess_robustness
 
     rob = assess_robustness(design, analysis, spec)
     names = list(BUNDLE_FILES)
     if rob.yield_estimate is not None and spec is not None:
-        from .plots import figure_svg, histogram_figure
+        from stagesynth.report.plots import figure_svg, histogram_figure
 
         contents["histograms.svg"] = figure_svg(histogram_figure(rob.yield_estimate, spec))
         svgs["histograms"] = contents["histograms.svg"].decode("utf-8")
@@ -95,15 +101,15 @@ def write_bundle(
         svgs["pulse"] = contents["pulse.svg"].decode("utf-8")
     else:
         names.remove("pulse.svg")
-    from .noiseplot import noise_plot
-    from .plots import figure_svg as _svg
+    from stagesynth.report.noiseplot import noise_plot
+    from stagesynth.report.plots import figure_svg as _svg
 
     contents["noise.svg"] = _svg(noise_plot(analysis, spec))
     svgs["noise"] = contents["noise.svg"].decode("utf-8")
     distortion = _distortion(analysis, spec)
     if distortion is not None:
-        from .distortionview import distortion_figure
-        from .plots import figure_svg
+        from stagesynth.report.distortionview import distortion_figure
+        from stagesynth.report.plots import figure_svg
 
         contents["distortion.svg"] = figure_svg(distortion_figure(distortion[0]))
         svgs["distortion"] = contents["distortion.svg"].decode("utf-8")
@@ -123,8 +129,8 @@ def write_bundle(
 
 def _distortion(analysis: Analysis, spec: Spec | None):
     """(DistortionViews, rationale lines) from the engine, or None without distortion."""
-    from ..linearity import linearity, notes
-    from ..thdsweep import distortion_views
+    from stagesynth.engine.thdsweep import distortion_views
+    from stagesynth.synthesis.linearity import linearity, notes
 
     views = distortion_views(analysis, spec.require.thd if spec is not None else None)
     if views is None:
@@ -136,7 +142,7 @@ def _distortion(analysis: Analysis, spec: Spec | None):
 def _default_pulse(analysis: Analysis):
     """The engine's pulse response at its default width; None where there is none to show
     (an unstable stage, or one with no midband gain)."""
-    from ..pulse import pulse_response
+    from stagesynth.engine.pulse import pulse_response
 
     try:
         return pulse_response(analysis)
@@ -146,7 +152,7 @@ def _default_pulse(analysis: Analysis):
 
 def _pulse_svg(pulse) -> bytes:
     """pulse.svg: the step edge and the pulse, as the engine computed them."""
-    from .plots import figure_svg
-    from .pulseview import pulse_figure
+    from stagesynth.report.plots import figure_svg
+    from stagesynth.report.pulseview import pulse_figure
 
     return figure_svg(pulse_figure(pulse))

@@ -1,6 +1,6 @@
 """The "Distortion" section of the report: THD against level, spectrum, waveforms.
 
-Draws what `stagesynth.thdsweep` computed from the harmonic-balance solution; nothing
+Draws what `stagesynth.engine.thdsweep` computed from the harmonic-balance solution; nothing
 here computes physics.
 """
 
@@ -10,15 +10,15 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..textout import fmt
-from .document import Figure as DocFigure
-from .document import Section, Table
-from .plots import BLUE, GRID_MINOR, INK, ORANGE, _new_figure
+from stagesynth.judging.textout import fmt
+from stagesynth.report.document import Figure as DocFigure
+from stagesynth.report.document import Section, Table
+from stagesynth.report.plots import BLUE, GRID_MINOR, INK, ORANGE, _new_figure
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from matplotlib.figure import Figure
 
-    from ..thdsweep import DistortionViews
+    from stagesynth.engine.thdsweep import DistortionViews
 
 RED = "#9e1c1c"
 

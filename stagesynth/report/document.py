@@ -15,7 +15,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
-from ..textout import (
+from stagesynth.judging.textout import (
     check_limit,
     check_value,
     fmt,
@@ -23,16 +23,16 @@ from ..textout import (
     status_text,
     transistor_cells,
 )
-from ..units import format_number, format_quantity
-from ..units import format_number as num
-from ..units import format_quantity as eng
+from stagesynth.quantities.units import format_number, format_quantity
+from stagesynth.quantities.units import format_number as num
+from stagesynth.quantities.units import format_quantity as eng
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
-    from ..analysis import Analysis
-    from ..netlist import Design
-    from ..polezero import PoleZeroMap
-    from ..spec import Spec
-    from ..verdict import Verdict
+    from stagesynth.contracts.netlist import Design
+    from stagesynth.contracts.spec import Spec
+    from stagesynth.engine.analysis import Analysis
+    from stagesynth.engine.polezero import PoleZeroMap
+    from stagesynth.judging.verdict import Verdict
 
 FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg",
                 "histograms": "histograms.svg", "pulse": "pulse.svg", "noise": "noise.svg",
@@ -167,7 +167,7 @@ def _bom_table(rows: Sequence[Mapping[str, str]]) -> Table:
 
 
 def _order_table(rows: Sequence[Mapping[str, str]]) -> Table:
-    from .bom import order_rows
+    from stagesynth.report.bom import order_rows
 
     body = tuple((r["qty"], r["refs"], r["part"], r["value"], r["tolerance"], r["rating"],
                   r["type"]) for r in order_rows(list(rows)))
@@ -239,9 +239,9 @@ def build_document(
     distortion=None,
 ) -> Document:
     """The report's content, independent of the output format."""
-    from .. import __version__
-    from ..polezero import corner_estimates, pole_zero_map
-    from .bom import bom_rows
+    from stagesynth import __version__
+    from stagesynth.engine.polezero import corner_estimates, pole_zero_map
+    from stagesynth.report.bom import bom_rows
 
     bom = bom if bom is not None else bom_rows(design, analysis, spec)
     pz = pz if pz is not None else pole_zero_map(analysis)
@@ -305,7 +305,7 @@ def build_document(
         volts,
     )))
     if pulse is not None:  # read before the Bode plot by sensor and ultrasonic users
-        from .pulseview import pulse_section
+        from stagesynth.report.pulseview import pulse_section
 
         sections.append(pulse_section(pulse))
     bode_caption = "Gain magnitude and phase of the nominal stage, from the AC analysis. "
@@ -331,7 +331,7 @@ def build_document(
                   else "")),
     )))
     if distortion is not None:  # (DistortionViews, rationale lines) from the engine
-        from .distortionview import distortion_section
+        from stagesynth.report.distortionview import distortion_section
 
         sections.append(distortion_section(*distortion))
     est_lo, est_hi = corner_estimates(pz)
@@ -370,7 +370,7 @@ def build_document(
 def _noise_section(analysis: Analysis, spec: Spec | None) -> Section | None:
     """Noise: density and noise figure against frequency, each part's share at the spot
     frequency, band rms and SNR at the rated swing (all quoted from noise.noise_summary)."""
-    from ..noise import noise_summary
+    from stagesynth.engine.noise import noise_summary
 
     rated = spec.require.swing_vpp if spec is not None and spec.require.swing_vpp else None
     ns = noise_summary(analysis, rated)
@@ -716,8 +716,8 @@ def render_html(doc: Document, svgs: Mapping[str, str]) -> str:
 
 def figure_svgs(design: Design, analysis: Analysis, spec: Spec | None = None) -> dict[str, str]:
     """SVG text of the three report figures, keyed as in FIGURE_FILES."""
-    from .noiseplot import noise_plot
-    from .plots import bode_figure, figure_svg, impedance_figure, ripple_figure
+    from stagesynth.report.noiseplot import noise_plot
+    from stagesynth.report.plots import bode_figure, figure_svg, impedance_figure, ripple_figure
 
     return {
         "schematic": schematic_svg(design, analysis),
@@ -752,11 +752,11 @@ def schematic_svg(design: Design, analysis: Analysis | None = None) -> str:
     With the analysis, each capacitor the parts list marks as an electrolytic is drawn
     polarized, + on the node the parts list names, so drawing and list cannot disagree.
     """
-    from .schematic import draw_schematic
+    from stagesynth.report.schematic import draw_schematic
 
     positive: dict[str, str] = {}
     if analysis is not None:
-        from .bom import capacitor_stress
+        from stagesynth.report.bom import capacitor_stress
 
         for part in design.parts:
             if part.kind == "capacitor":

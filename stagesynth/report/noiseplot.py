@@ -8,7 +8,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .plots import (
+from stagesynth.report.plots import (
     _STYLE,
     BLUE,
     MASK,
@@ -26,13 +26,13 @@ from .plots import (
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from matplotlib.figure import Figure
 
-    from ..analysis import Analysis
-    from ..spec import Spec
+    from stagesynth.contracts.spec import Spec
+    from stagesynth.engine.analysis import Analysis
 
 
 def noise_data(analysis: Analysis, spec: Spec | None = None) -> dict[str, np.ndarray]:
     """The sweep behind the plot (the engine's figures over the plot's range)."""
-    from ..noise import noise_curves
+    from stagesynth.engine.noise import noise_curves
 
     lo, hi = plot_range(analysis, spec)
     return noise_curves(analysis, sweep(lo, hi, 40))
@@ -43,7 +43,7 @@ def noise_plot(analysis: Analysis, spec: Spec | None = None) -> Figure:
     it the spot noise figure (when the source has a resistance)."""
     import matplotlib
 
-    from ..noise import noise_summary
+    from stagesynth.engine.noise import noise_summary
 
     with matplotlib.rc_context(_STYLE):
         data = noise_data(analysis, spec)

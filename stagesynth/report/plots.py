@@ -13,13 +13,13 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..units import format_quantity
+from stagesynth.quantities.units import format_quantity
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from matplotlib.figure import Figure
 
-    from ..analysis import Analysis
-    from ..spec import Spec
+    from stagesynth.contracts.spec import Spec
+    from stagesynth.engine.analysis import Analysis
 
 # Our own neutral, colour-blind-safe palette (a blue/orange pair stays distinct under
 # the common colour-vision deficiencies and in greyscale, helped by line styles).
@@ -496,7 +496,7 @@ def histogram_figure(estimate, spec: Spec) -> Figure:
 # ---------------------------------------------------------------------------
 def ripple_data(analysis: Analysis, spec: Spec | None = None) -> dict[str, np.ndarray]:
     """The engine's ripple sweep: frequency (Hz) and |v_load / v_supply| (dB), nominal."""
-    from ..supply import ripple_transfer
+    from stagesynth.engine.supply import ripple_transfer
 
     lo, hi = plot_range(analysis, spec)
     f = sweep(min(lo, 1.0), hi)

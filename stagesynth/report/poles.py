@@ -1,9 +1,9 @@
-"""Former home of the pole/zero computation, now in the engine (`stagesynth.polezero`).
+"""Former home of the pole/zero computation, now in the engine (`stagesynth.engine.polezero`).
 
 Kept so that older imports keep working; the report itself computes no physics.
 """
 
-from ..polezero import (  # noqa: F401
+from stagesynth.engine.polezero import (  # noqa: F401
     PoleZeroMap,
     Root,
     corner_estimates,

@@ -1,6 +1,6 @@
 """The pulse response in the report: a two-panel figure and its section.
 
-Draws what `stagesynth.pulse` computed (python-control step responses of the
+Draws what `stagesynth.engine.pulse` computed (python-control step responses of the
 state-space gain); nothing here computes physics.
 """
 
@@ -11,16 +11,16 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..textout import fmt
-from ..units import format_number, format_quantity
-from .document import Figure as DocFigure
-from .document import Section, Table
-from .plots import BLUE, GRID_MINOR, INK, ORANGE, _new_figure, eng_label
+from stagesynth.judging.textout import fmt
+from stagesynth.quantities.units import format_number, format_quantity
+from stagesynth.report.document import Figure as DocFigure
+from stagesynth.report.document import Section, Table
+from stagesynth.report.plots import BLUE, GRID_MINOR, INK, ORANGE, _new_figure, eng_label
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from matplotlib.figure import Figure
 
-    from ..pulse import PulseResponse
+    from stagesynth.engine.pulse import PulseResponse
 
 
 def _time_axis(t: np.ndarray) -> tuple[np.ndarray, str]:

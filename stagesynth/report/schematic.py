@@ -30,7 +30,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from xml.sax.saxutils import escape
 
-from ..netlist import Design, Part
+from stagesynth.contracts.netlist import Design, Part
 
 Point = tuple[float, float]
 Box = tuple[float, float, float, float]  # x0, y0, x1, y1
@@ -134,7 +134,7 @@ def _fmt(value: object, unit: str) -> str:
     if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
         return "?"
     try:
-        from ..units import format_quantity
+        from stagesynth.quantities.units import format_quantity
     except ImportError:  # pragma: no cover - the project's formatter is optional here
         return _local_format(float(value), unit)
     try:

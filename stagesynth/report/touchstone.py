@@ -19,9 +19,9 @@ import numpy as np
 if TYPE_CHECKING:  # pragma: no cover - typing only
     import skrf
 
-    from ..ac import AcSystem
-    from ..analysis import Analysis
-    from ..netlist import Design
+    from stagesynth.contracts.netlist import Design
+    from stagesynth.engine.ac import AcSystem
+    from stagesynth.engine.analysis import Analysis
 
 Z0 = 50.0  # ohm, reference impedance of the file
 POINTS_PER_DECADE = 25
@@ -130,7 +130,7 @@ def stage_network(
     try:
         import skrf
     except ImportError:
-        from ..errors import StageError
+        from stagesynth.quantities.errors import StageError
 
         raise StageError("a scikit-rf Network needs scikit-rf, which is not installed",
                          accepted="pip install scikit-rf (the Touchstone file stage.s2p "

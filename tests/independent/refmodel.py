@@ -16,7 +16,7 @@ from typing import Any
 
 import numpy as np
 
-from stagesynth.errors import ConvergenceError, StageError
+from stagesynth.quantities.errors import ConvergenceError, StageError
 
 # CODATA 2018 exact values (SI redefinition of 2019).
 K_BOLTZMANN = 1.380649e-23  # J/K
