@@ -121,7 +121,7 @@ def test_drawn_faithfully(polarity):
     """The schematic of either mirror reads back as its netlist (the checker of
     test_schematic.py: every terminal of every part on its own node, nothing else joined)."""
     d = fb_pair.build(_spec(polarity), VALUES)
-    assert unfaithful(schematic._layout(d, {}), d) == []
+    assert unfaithful(schematic.choose_layout(d, {}), d) == []
 
 
 def test_registered_after_the_single_stages():

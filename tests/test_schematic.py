@@ -141,7 +141,7 @@ ALL = {
 # ---------------------------------------------------------------------------
 def refuse(self):
     """Stands in for a layout's build(): that layout gives up on every netlist."""
-    raise schematic._NotAChain("forced for this test")
+    raise schematic.recognize.NotAChain("forced for this test")
 
 
 def texts(svg: str) -> list[str]:
@@ -341,7 +341,7 @@ def test_generic_layout_names_the_nodes_it_does_not_wire(monkeypatch, name):
     """Parts between two transistor nodes are drawn apart; both their ends carry the node's
     name, and the same name marks the node where it is wired (net labels, IEEE 315 practice:
     the same name means the same node), so every connection can be traced."""
-    monkeypatch.setattr(schematic._ChainBuilder, "build", refuse)
+    monkeypatch.setattr(schematic.chain.ChainBuilder, "build", refuse)
     d = ALL[name]()
     lines = texts(draw_schematic(d, node_names=False))
     for ref in {"common_base": ("C2",), "feedback_pair": ("RF", "C2")}[name]:
@@ -353,8 +353,8 @@ def test_generic_layout_names_the_nodes_it_does_not_wire(monkeypatch, name):
 @pytest.mark.parametrize("name", ["npn_ce", "feedback_pair"])
 def test_last_resort_layout(monkeypatch, name):
     """Should both wired layouts give up, the plain layout still names every part and node."""
-    monkeypatch.setattr(schematic._ChainBuilder, "build", refuse)
-    monkeypatch.setattr(schematic._NetBuilder, "build", refuse)
+    monkeypatch.setattr(schematic.chain.ChainBuilder, "build", refuse)
+    monkeypatch.setattr(schematic.fallback.NetBuilder, "build", refuse)
     d = ALL[name]()
     lines = texts(draw_schematic(d))
     for ref, value in expected_labels(d).items():
@@ -399,11 +399,11 @@ def _dist(p, a, b):
 def reading(sheet, d: Design):
     """Groups of conductors a reader sees joined, each with the netlist nodes its terminals
     belong to, and whether a name or rail symbol marks it; plus the terminals' groups."""
-    y_top, y_bot = schematic._rails(sheet)
-    placed, wires, grounds, rail_xs = schematic._resolve(sheet, y_top, y_bot)
+    y_top, y_bot = schematic.faithful.rail_heights(sheet)
+    placed, wires, grounds, rail_xs = schematic.faithful.resolve(sheet, y_top, y_bot)
     segs = [(a, b) for a, b, _ in wires] + [ld for pl in placed for ld in pl.leads]
     if rail_xs:
-        segs.append(schematic._rail_segment(rail_xs, y_top))
+        segs.append(schematic.faithful.rail_segment(rail_xs, y_top))
     pins = []  # (point, node, marks the node by name or symbol)
     for pl in placed:
         pins += [(pl.p, pl.two.nodes[0], False), (pl.q, pl.two.nodes[1], False)]
@@ -411,12 +411,12 @@ def reading(sheet, d: Design):
         (bx, by), sgn = t.base, (-1 if t.pnp else 1)
         c, b, e = t.nodes
         pins += [((bx, by), b, False),
-                 ((bx + schematic._BJT_DX, by + sgn * schematic._BJT_DY), c, False),
-                 ((bx + schematic._BJT_DX, by - sgn * schematic._BJT_DY), e, False)]
+                 ((bx + schematic.sheet.BJT_DX, by + sgn * schematic.sheet.BJT_DY), c, False),
+                 ((bx + schematic.sheet.BJT_DX, by - sgn * schematic.sheet.BJT_DY), e, False)]
     pins += [(p, d.ground, True) for p, _ in grounds]
     pins += [(p, d.supply_node, True) for p in sheet.flags]
     if rail_xs:
-        pins.append((schematic._rail_segment(rail_xs, y_top)[0], d.supply_node, True))
+        pins.append((schematic.faithful.rail_segment(rail_xs, y_top)[0], d.supply_node, True))
     terminals = [(p, {"in": d.input, "out": d.output}[name]) for p, name in sheet.terminals]
     pins += [(p, node, True) for p, node in terminals]
     pins += [(p, node, True) for p, node in sheet.names]
@@ -486,7 +486,7 @@ def test_generic_layout_wires_the_input_terminal_only_to_its_own_node():
     after the input terminal, so "in" read as wired to the base, whereas the signal enters
     the emitter through C1. The input terminal must join only parts that touch node "in"."""
     d = common_base()
-    sheet = schematic._NetBuilder(d, {}, True).build()
+    sheet = schematic.fallback.NetBuilder(d, {}, True).build()
     assert unfaithful(sheet, d) == []
     nodes, _, near = reading(sheet, d)
     assert near == []  # nothing of another node close to the terminals
@@ -498,19 +498,19 @@ def test_generic_layout_wires_the_input_terminal_only_to_its_own_node():
 def test_unfaithful_layout_is_not_used(monkeypatch):
     """Should a layout draw a wire the netlist does not have (here: the input terminal wired
     to the base row), the drawer does not use it and falls back to a faithful one."""
-    real_build = schematic._NetBuilder.build
+    real_build = schematic.fallback.NetBuilder.build
 
     def wrong(self):
         sheet = real_build(self)
         sheet.wires.append(((0.0, 0.0), self.home["b1"], False))
         return sheet
 
-    monkeypatch.setattr(schematic._ChainBuilder, "build", refuse)
-    monkeypatch.setattr(schematic._NetBuilder, "build", wrong)
+    monkeypatch.setattr(schematic.chain.ChainBuilder, "build", refuse)
+    monkeypatch.setattr(schematic.fallback.NetBuilder, "build", wrong)
     d = common_base()
-    faults = unfaithful(schematic._NetBuilder(d, {}, True).build(), d)
+    faults = unfaithful(schematic.fallback.NetBuilder(d, {}, True).build(), d)
     assert any("'b1'" in f and "'in'" in f and "one node" in f for f in faults)
-    assert unfaithful(schematic._layout(d, {}), d) == []
+    assert unfaithful(schematic.choose_layout(d, {}), d) == []
 
 
 @pytest.mark.parametrize("name", sorted(ALL))
@@ -518,11 +518,11 @@ def test_unfaithful_layout_is_not_used(monkeypatch):
 def test_every_layout_draws_the_netlist_faithfully(name, layout):
     d = ALL[name]()
     if layout == "chosen":
-        sheet = schematic._layout(d, {})
+        sheet = schematic.choose_layout(d, {})
     elif layout == "net":
-        sheet = schematic._NetBuilder(d, {}, True).build()
+        sheet = schematic.fallback.NetBuilder(d, {}, True).build()
     else:
-        sheet = schematic._generic_sheet(d, {})
+        sheet = schematic.fallback.generic_sheet(d, {})
     assert unfaithful(sheet, d) == [], (name, layout)
 
 
@@ -530,7 +530,7 @@ def test_every_layout_draws_the_netlist_faithfully(name, layout):
                                   "common_base", "collector_feedback"])
 def test_known_chains_are_wired_not_named(name):
     """The stage families get the hand-style layout: every connection a wire, no net names."""
-    sheet = schematic._layout(ALL[name](), {})
+    sheet = schematic.choose_layout(ALL[name](), {})
     assert sheet.names == []
 
 
@@ -577,7 +577,7 @@ def test_family_drawn_as_a_wired_chain(family, polarity):
     left, output on the right; the collector load on the supply side of the transistor
     for NPN and on the ground side for PNP (the mirror image)."""
     d = family_design(family, polarity)
-    sheet = schematic._layout(d, {})
+    sheet = schematic.choose_layout(d, {})
     assert unfaithful(sheet, d) == []
     assert sheet.names == []
     (q1,) = sheet.bjts
@@ -598,7 +598,7 @@ def test_common_base_input_enters_the_emitter(polarity):
     In the drawing the input terminal's group holds only node "in", and C1's far end is in
     the group of the transistor's emitter terminal."""
     d = family_design("cb", polarity)
-    sheet = schematic._layout(d, {})
+    sheet = schematic.choose_layout(d, {})
     nodes, _, near = reading(sheet, d)
     assert near == []
     assert [ns for ns in nodes.values() if "in" in ns] == [{"in"}]
@@ -611,12 +611,12 @@ def test_bootstrap_and_split_feedback_drawn_in_place(polarity):
     """Bootstrapped follower: R3 from the base row to x1, C3 from x1 to the emitter row;
     split collector feedback: R2 and R1 in a row through m1, C4 from m1 to the emitter's rail."""
     boot = family_design("ef_boot", polarity)
-    sheet = schematic._layout(boot, {})
+    sheet = schematic.choose_layout(boot, {})
     refs = {t.ref: t for t in sheet.twos}
     assert set(refs["C3"].nodes) == {"e1", "x1"} and set(refs["R3"].nodes) == {"x1", "b1"}
     assert unfaithful(sheet, boot) == []
     fb = family_design("ce_fb", polarity)
-    sheet = schematic._layout(fb, {})
+    sheet = schematic.choose_layout(fb, {})
     refs = {t.ref: t for t in sheet.twos}
     assert refs["R1"].a[1] == refs["R1"].b[1] == refs["R2"].a[1]  # one row
     assert unfaithful(sheet, fb) == []
@@ -651,7 +651,7 @@ def test_electrolytics_polarized_toward_the_higher_dc_node(family, polarity):
     positive = {r["ref"]: r["type"].rsplit(" ", 1)[-1] for r in rows if r["ref"] in electrolytic}
     marked = replace(d, extra={**d.extra, "capacitors": {
         ref: {"polarized": True, "positive": n} for ref, n in positive.items()}})
-    sheet = schematic._layout(marked, {})
+    sheet = schematic.choose_layout(marked, {})
     for t in sheet.twos:
         if t.polarized:
             plus, minus = t.nodes  # the + end is end a
@@ -664,4 +664,4 @@ def test_electrolytics_polarized_toward_the_higher_dc_node(family, polarity):
           suppress_health_check=[HealthCheck.too_slow])
 @given(random_design())
 def test_any_netlist_is_drawn_faithfully(d):
-    assert unfaithful(schematic._layout(d, {}), d) == []
+    assert unfaithful(schematic.choose_layout(d, {}), d) == []
