@@ -224,3 +224,23 @@ def test_gate_shot_noise_into_a_high_source_resistance() -> None:
     gate = (4 * K * t / rg + 2 * Q * ig) * par**2
     chan = 4 * K * t * (2 / 3) / gm + 4 * K * t / (gm**2 * rd)
     assert an.nominal.noise == pytest.approx(math.sqrt(gate + chan) / div, rel=1e-3)
+
+
+# ------------------------------------------------------------------------------ distortion
+
+
+def test_square_law_second_harmonic_is_v_over_4_vov() -> None:
+    # Razavi / Sedra & Smith (square-law device, from memory): with iD = k(VOV + v)^2 the
+    # drain current carries 2k VOV v + k v^2, so HD2 = V/(4 VOV) and no third harmonic, for a
+    # common source with its source grounded (no bias shift under drive), driven at VGS = 0
+    # by an ideal source, ro -> inf.
+    from independent import refjfetthd as rt
+
+    d = jd._design("cs thd", 15.0, {"resistance": 0.0}, 1e15, 0.0, [
+        jd._r("RG", 1e9, "in", "0"), jd._r("RD", 2.2e3, "vdd", "out"),
+        jd._j("J1", "out", "in", "0")], {"J": ideal()})
+    cir = rj.circuit_from_design(d)
+    op = rj.solve_dc(cir, rj.nominal_conditions(cir))
+    res = rt.distortion(cir, op, 2.0, 1e3)
+    assert res.hd2 == pytest.approx(res.emf / (4 * abs(VP)), rel=1e-3)
+    assert res.hd3 < 1e-9

@@ -118,7 +118,8 @@ SPECS: dict[str, dict[str, Any]] = {
     "sf_boot": _spec("sf_boot", "Capacitive-sensor follower", 0.05, {
         "gain_db": -0.5, "gain_tolerance_db": 1.0, "f_low": 30.0, "f_high": 2e4,
         "z_in": 20e6, "swing": 1.0, "ambient": HOT, "inverting": "no",
-        "noise": 50e-9, "noise_at": 1e3, "supply_rejection": 20.0}),
+        "noise": 50e-9, "noise_at": 1e3, "supply_rejection": 20.0, "thd": 0.03,
+        "thd_level": 2.0, "thd_at": 1e3}),
     "cs_ef": _spec("cs_ef", "Hydrophone front end", 0.05, {
         "gain_db": 12.0, "gain_tolerance_db": 6.0, "f_low": 10.0, "f_high": 5e4,
         "z_in": 1e6, "z_out": 100.0, "swing": 2.0, "ambient": HOT, "noise": 20e-9,
@@ -133,7 +134,8 @@ SPECS: dict[str, dict[str, Any]] = {
 
 
 def _qs(value: float, unit: str) -> str:
-    return f'"{value!r} {unit}"'
+    """A quantity string with a unit, e.g. '"4.7 pF"' (nine significant digits)."""
+    return f'"{value:.9g} {unit}"'
 
 
 def jfet_toml(dev: Mapping[str, Any], section: str = "transistor") -> str:
@@ -190,6 +192,12 @@ def spec_toml(spec: Mapping[str, Any]) -> str:
         out.append(f'supply_rejection = "{req["supply_rejection"]:g} dB"')
     if "ripple_at" in req:
         out.append(f"ripple_at = {_qs(req['ripple_at'], 'Hz')}")
+    if "thd" in req:
+        out.append(f'thd = "{req["thd"] * 100:g} %"')
+    if "thd_level" in req:
+        out.append(f'thd_level = "{req["thd_level"]:g} Vpp"')
+    if "thd_at" in req:
+        out.append(f"thd_at = {_qs(req['thd_at'], 'Hz')}")
     jf = [v for v in d["devices"].values() if v.get("kind") == "jfet"]
     bj = [v for v in d["devices"].values() if v.get("kind") != "jfet"]
     text = "\n".join(out) + "\n\n" + jfet_toml(jf[0])

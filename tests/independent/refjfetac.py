@@ -363,7 +363,15 @@ def analyze(design: Mapping[str, Any], spec: Mapping[str, Any]) -> Analysis:
     corners = tuple(figures(cir, rj.solve_dc(cir, c, guess=guess), req, flicker)
                     for c in conds)
     nominal = figures(cir, nom, req, flicker)
-    return Analysis(nominal, corners, judge(nominal, corners, req))
+    checks = judge(nominal, corners, req)
+    if req.get("thd") is not None:  # distortion: the worst over nominal and every corner
+        from .refjfetthd import distortion
+
+        level = float(req.get("thd_level", req["swing"]))
+        at = float(req.get("thd_at", math.sqrt(float(req["f_low"]) * float(req["f_high"]))))
+        w = max(distortion(cir, f.op, level, at).thd for f in (nominal, *corners))
+        checks += (rm.Check("thd", w, req["thd"], w <= req["thd"]),)
+    return Analysis(nominal, corners, checks)
 
 
 def judge(nom: Figures, corners: tuple[Figures, ...], req: Mapping[str, Any]
