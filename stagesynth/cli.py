@@ -439,13 +439,38 @@ def presets() -> None:
         ("vbe_tempco", lambda d: q(d.vbe_tempco, "V/K")),
         ("hfe_tempco", lambda d: q(d.hfe_tempco, "%/K")),
     ]
-    names = list(PRESETS)
-    rows = [["", *names]] + [[label, *(f(PRESETS[n]) for n in names)] for label, f in fields]
+    _table(PRESETS, fields)
+    from stagesynth.contracts.jfet import JFET_PRESETS
+
+    def pair(lo: float, hi: float, unit: str) -> str:
+        return f"{q(lo, unit)} / {q(hi, unit)}"
+
+    jfields = [
+        ("channel", lambda d: d.polarity.upper()),
+        ("idss min/max", lambda d: pair(d.idss_min, d.idss_max, "A")),
+        ("vp (with idss min/max)", lambda d: pair(d.sign * -d.vp_near, d.sign * -d.vp_far, "V")),
+        ("c_gs", lambda d: q(d.c_gs, "F")),
+        ("c_gd", lambda d: q(d.c_gd, "F")),
+        ("early_voltage", lambda d: q(d.early_voltage, "V")),
+        ("i_gss", lambda d: q(d.i_gss, "A")),
+        ("flicker_corner", lambda d: q(d.flicker_corner, "Hz")),
+        ("vds_max", lambda d: q(d.vds_max, "V") if d.vds_max else "-"),
+        ("p_max", lambda d: q(d.p_max, "W") if d.p_max else "-"),
+        ("theta_ja", lambda d: q(d.theta_ja, "K/W") if d.theta_ja else "-"),
+    ]
+    typer.echo("\nJunction FETs (kind = \"jfet\"):")
+    _table(JFET_PRESETS, jfields)
+    typer.echo("\nGeneric, invented types (no manufacturer's part). In a spec: "
+               '[transistor] preset = "NAME"; any key above overrides the preset\'s value.')
+
+
+def _table(presets: dict, fields: list) -> None:
+    """One column per preset, one row per field."""
+    names = list(presets)
+    rows = [["", *names]] + [[label, *(f(presets[n]) for n in names)] for label, f in fields]
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     for r in rows:
         typer.echo("  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)).rstrip())
-    typer.echo("\nGeneric, invented types (no manufacturer's part). In a spec: "
-               '[transistor] preset = "NAME"; any key above overrides the preset\'s value.')
 
 
 @app.command()

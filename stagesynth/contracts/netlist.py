@@ -15,53 +15,30 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
+from stagesynth.contracts.connectivity import check_connectivity
 from stagesynth.contracts.device import Device
+from stagesynth.contracts.devicefile import _Reader, any_device_from_design_dict
+from stagesynth.contracts.jfet import Jfet
 from stagesynth.quantities.errors import StageError
 from stagesynth.quantities.limits import (
     AMBIENT_LIMIT,
     MAX_DEPTH,
     MAX_PARTS,
     SUPPLY_LIMIT,
-    device_problem,
     nesting_depth,
     out_of_range,
 )
 from stagesynth.quantities.units import format_quantity as fq
 
 FORMAT = "stagesynth-design-1"
-PART_KINDS = ("resistor", "capacitor", "bjt")
+PART_KINDS = ("resistor", "capacitor", "bjt", "jfet")
 BJT_TERMINALS = ("c", "b", "e")
-
-# Device fields as the design file spells them (SI floats); "hfe" is [min, max].
-_DEVICE_REQUIRED = ("polarity", "hfe", "vbe", "ft", "c_cb")
-_DEVICE_FLOAT_KEYS = (
-    "hfe_typ",
-    "vbe",
-    "vbe_current",
-    "early_voltage",
-    "ft",
-    "c_cb",
-    "r_bb",
-    "vce_sat",
-    "ic_max",
-    "vce_max",
-    "p_max",
-    "theta_ja",
-    "vbe_tempco",
-    "hfe_tempco",
-    # second release (contract section 2)
-    "ft_current",
-    "c_je",
-    "hfe_reverse",
-)
-_DEVICE_FLOAT_KEYS += ("flicker_corner",)  # noise (second release)
-_SIGNED_DEVICE_KEYS = ("vbe_tempco", "hfe_tempco")
-_ZERO_OK_DEVICE_KEYS = ("r_bb", "vce_sat", "c_je", "flicker_corner")
-
+JFET_TERMINALS = ("d", "g", "s")  # junction FET (second release)
 
 @dataclass(frozen=True)
 class Part:
-    """One part. Resistors and capacitors have two nodes; a BJT has (c, b, e) and a device."""
+    """One part. Resistors and capacitors have two nodes; a BJT has (c, b, e) and a device,
+    a junction FET (d, g, s) and a device."""
 
     ref: str
     kind: str
@@ -73,7 +50,19 @@ class Part:
     def is_bjt(self) -> bool:
         return self.kind == "bjt"
 
+    @property
+    def is_jfet(self) -> bool:
+        return self.kind == "jfet"
+
+    @property
+    def is_transistor(self) -> bool:
+        """A BJT or a junction FET: a part with a device and three terminals."""
+        return self.kind in ("bjt", "jfet")
+
     def to_dict(self) -> dict[str, Any]:
+        if self.is_jfet:
+            return {"ref": self.ref, "kind": "jfet", "device": self.device,
+                    "nodes": dict(zip(JFET_TERMINALS, self.nodes, strict=True))}
         if self.is_bjt:
             return {
                 "ref": self.ref,
@@ -89,7 +78,7 @@ class Design:
     """A complete stage: netlist plus the source, load and supply it was designed for."""
 
     parts: tuple[Part, ...]
-    devices: Mapping[str, Device]
+    devices: Mapping[str, Device | Jfet]
     supply_voltage: float
     load_resistance: float
     source_resistance: float = 0.0
@@ -110,6 +99,16 @@ class Design:
     def bjts(self) -> tuple[Part, ...]:
         return tuple(p for p in self.parts if p.is_bjt)
 
+    @property
+    def jfets(self) -> tuple[Part, ...]:
+        return tuple(p for p in self.parts if p.is_jfet)
+
+    @property
+    def transistors(self) -> tuple[Part, ...]:
+        """Bipolar transistors first, then junction FETs: the order of the engine's
+        per-transistor arrays."""
+        return self.bjts + self.jfets
+
     def part(self, ref: str) -> Part:
         for p in self.parts:
             if p.ref == ref:
@@ -129,7 +128,7 @@ class Design:
     # -- edits ---------------------------------------------------------------
     def with_values(self, values: Mapping[str, float]) -> Design:
         """A copy with some passive parts' values replaced (by reference designator)."""
-        unknown = set(values) - {p.ref for p in self.parts if not p.is_bjt}
+        unknown = set(values) - {p.ref for p in self.parts if not p.is_transistor}
         if unknown:
             raise KeyError(f"no passive part named {sorted(unknown)}")
         parts = tuple(
@@ -149,8 +148,8 @@ class Design:
             part = self.part(ref)
         except KeyError:
             raise StageError(f"no part named {ref!r}", key="ref", accepted=", ".join(
-                p.ref for p in self.parts if not p.is_bjt)) from None
-        if part.is_bjt or part.kind not in ("resistor", "capacitor"):
+                p.ref for p in self.parts if not p.is_transistor)) from None
+        if part.is_transistor or part.kind not in ("resistor", "capacitor"):
             raise StageError(f"{ref} is a {part.kind}; only resistors and capacitors take a "
                              "value", key=ref, accepted="a resistor or capacitor reference")
         unit = "Ω" if part.kind == "resistor" else "F"
@@ -169,7 +168,7 @@ class Design:
         otherwise the first node. Roles naming the part are dropped with it.
         """
         part = self.part(ref)
-        if part.is_bjt:
+        if part.is_transistor:
             raise ValueError(f"{ref} is a transistor; only two-terminal parts can be shorted")
         a, b = part.nodes
         fixed = {self.ground, self.supply_node, self.input, self.output}
@@ -186,7 +185,8 @@ class Design:
 
     def values(self) -> dict[str, float]:
         """Values of the passive parts by reference designator."""
-        return {p.ref: float(p.value) for p in self.parts if not p.is_bjt and p.value is not None}
+        return {p.ref: float(p.value) for p in self.parts
+                if not p.is_transistor and p.value is not None}
 
     # -- serialization ---------------------------------------------------------
     def to_dict(self) -> dict[str, Any]:
@@ -248,110 +248,6 @@ _KNOWN_TOP = {
 }
 
 
-class _Reader:
-    """Validating reader: every error names the file and the key path."""
-
-    def __init__(self, file: str) -> None:
-        self.file = file
-
-    def fail(self, key: str, message: str, accepted: str | None = None) -> StageError:
-        return StageError(message, file=self.file, key=key, accepted=accepted)
-
-    def number(
-        self,
-        data: Mapping[str, Any],
-        key: str,
-        path: str,
-        *,
-        positive: bool = True,
-        zero_ok: bool = False,
-        default: float | None = None,
-        required: bool = True,
-    ) -> float | None:
-        if key not in data or data[key] is None:
-            if default is not None or not required:
-                return default
-            raise self.fail(f"{path}.{key}" if path else key, "is missing", "a number in SI units")
-        value = data[key]
-        where = f"{path}.{key}" if path else key
-        if isinstance(value, bool) or not isinstance(value, int | float):
-            raise self.fail(where, f"{value!r} is not a number", "a number in SI units")
-        value = float(value)
-        if not math.isfinite(value):
-            raise self.fail(where, f"{value!r} is not finite", "a finite number")
-        if positive and (value < 0 or (value == 0 and not zero_ok)):
-            need = "a number >= 0" if zero_ok else "a number > 0"
-            raise self.fail(where, f"{value!r} must be {'non-negative' if zero_ok else 'positive'}",
-                            need)
-        return value
-
-    def text(self, data: Mapping[str, Any], key: str, path: str, default: str | None = None) -> str:
-        where = f"{path}.{key}" if path else key
-        if key not in data:
-            if default is not None:
-                return default
-            raise self.fail(where, "is missing", "a string")
-        value = data[key]
-        if not isinstance(value, str) or not value:
-            raise self.fail(where, f"{value!r} is not a non-empty string", "a string")
-        return value
-
-    def mapping(self, data: Mapping[str, Any], key: str, required: bool = True) -> Mapping:
-        if key not in data:
-            if not required:
-                return {}
-            raise self.fail(key, "is missing", "an object")
-        value = data[key]
-        if not isinstance(value, Mapping):
-            raise self.fail(key, f"is a {type(value).__name__}, not an object", "an object")
-        return value
-
-
-def device_from_design_dict(data: Mapping[str, Any], name: str, file: str) -> Device:
-    """Read one entry of the design file's "devices" object."""
-    r = _Reader(file)
-    path = f"devices.{name}"
-    if not isinstance(data, Mapping):
-        raise r.fail(path, "is not an object", "an object of device fields")
-    for key in _DEVICE_REQUIRED:
-        if data.get(key) is None:  # absent or null
-            raise r.fail(f"{path}.{key}", "is missing", "see the design-file format")
-    polarity = data["polarity"]
-    if polarity not in ("npn", "pnp"):
-        raise r.fail(f"{path}.polarity", f"{polarity!r} is not a polarity", '"npn" or "pnp"')
-    spread = data["hfe"]
-    if (
-        not isinstance(spread, list | tuple)
-        or len(spread) != 2
-        or not all(isinstance(v, int | float) and not isinstance(v, bool) for v in spread)
-    ):
-        raise r.fail(f"{path}.hfe", f"{spread!r} is not [min, max]", "[min, max], e.g. [100, 300]")
-    hfe_min, hfe_max = float(spread[0]), float(spread[1])
-    if not 0 < hfe_min <= hfe_max:
-        raise r.fail(f"{path}.hfe", f"{spread!r} must have 0 < min <= max", "[min, max]")
-    values: dict[str, Any] = {"polarity": polarity, "hfe_min": hfe_min, "hfe_max": hfe_max}
-    for key in _DEVICE_FLOAT_KEYS:
-        if key in data and data[key] is not None:
-            values[key] = r.number(
-                data,
-                key,
-                path,
-                positive=key not in _SIGNED_DEVICE_KEYS,
-                zero_ok=key in _ZERO_OK_DEVICE_KEYS,
-            )
-    if "hfe_typ" in values and not hfe_min <= values["hfe_typ"] <= hfe_max:
-        raise r.fail(f"{path}.hfe_typ", f"{values['hfe_typ']} lies outside hfe {spread}",
-                     "a value between hfe min and max")
-    if isinstance(data.get("preset"), str):
-        values["name"] = data["preset"]
-    device = Device(**values)
-    problem = device_problem(device)
-    if problem is not None:  # the same limits the spec loader applies
-        field, message, accepted = problem
-        raise r.fail(f"{path}.{field}", message, accepted)
-    return device
-
-
 def design_from_dict(data: Any, file: str = "<design>") -> Design:
     """Build and validate a Design from parsed JSON."""
     r = _Reader(file)
@@ -379,7 +275,8 @@ def design_from_dict(data: Any, file: str = "<design>") -> Design:
     out = r.text(data, "output", "")
 
     devices_raw = r.mapping(data, "devices")
-    devices = {name: device_from_design_dict(d, name, file) for name, d in devices_raw.items()}
+    devices = {name: any_device_from_design_dict(d, name, file)
+               for name, d in devices_raw.items()}
 
     parts_raw = data.get("parts")
     if not isinstance(parts_raw, list) or not parts_raw:
@@ -458,7 +355,8 @@ def _check_conditions(cond: Any, r: _Reader) -> None:
                      "a number from 0 to below 1, e.g. 0.05")
 
 
-def _part_from_dict(raw: Any, i: int, devices: Mapping[str, Device], r: _Reader) -> Part:
+def _part_from_dict(raw: Any, i: int, devices: Mapping[str, Device | Jfet],
+                    r: _Reader) -> Part:
     path = f"parts[{i}]"
     if not isinstance(raw, Mapping):
         raise r.fail(
@@ -470,15 +368,21 @@ def _part_from_dict(raw: Any, i: int, devices: Mapping[str, Device], r: _Reader)
     if kind not in PART_KINDS:
         raise r.fail(f"{path}.kind", f"{kind!r} is not a part kind", ", ".join(PART_KINDS))
     nodes = raw.get("nodes")
-    if kind == "bjt":
-        if not isinstance(nodes, Mapping) or set(nodes) != set(BJT_TERMINALS):
-            raise r.fail(f"{path}.nodes", f"{nodes!r} must name the c, b and e nodes",
-                         '{"c": ..., "b": ..., "e": ...}')
-        names = tuple(nodes[t] for t in BJT_TERMINALS)
+    if kind in ("bjt", "jfet"):
+        terms = BJT_TERMINALS if kind == "bjt" else JFET_TERMINALS
+        if not isinstance(nodes, Mapping) or set(nodes) != set(terms):
+            raise r.fail(f"{path}.nodes", f"{nodes!r} must name the {', '.join(terms[:2])} "
+                         f"and {terms[2]} nodes", "{" + ", ".join(f'"{t}": ...' for t in terms)
+                         + "}")
+        names = tuple(nodes[t] for t in terms)
         dev = raw.get("device")
-        if dev not in devices:
+        if not isinstance(dev, str) or dev not in devices:
             known = ", ".join(sorted(devices)) or "none defined"
             raise r.fail(f"{path}.device", f"device {dev!r} is not in \"devices\"", known)
+        dev_kind = getattr(devices[dev], "kind", "bjt")
+        if dev_kind != kind:
+            raise r.fail(f"{path}.device", f"device {dev!r} is a {dev_kind}, but the part is "
+                         f"a {kind}", f"a device entry of kind {kind!r}")
     else:
         if not isinstance(nodes, list | tuple) or len(nodes) != 2:
             raise r.fail(f"{path}.nodes", f"{nodes!r} must be a list of two nodes",
@@ -487,9 +391,9 @@ def _part_from_dict(raw: Any, i: int, devices: Mapping[str, Device], r: _Reader)
     for n in names:
         if not isinstance(n, str) or not n:
             raise r.fail(f"{path}.nodes", f"{n!r} is not a node name", "non-empty strings")
-    if len(set(names)) < len(names) and kind != "bjt":
+    if len(set(names)) < len(names) and kind not in ("bjt", "jfet"):
         raise r.fail(f"{path}.nodes", "both ends are on the same node", "two different nodes")
-    if kind == "bjt":
+    if kind in ("bjt", "jfet"):
         return Part(ref=ref, kind=kind, nodes=names, device=raw["device"])
     if isinstance(raw.get("value"), str):  # written as in a spec: "4k7", "100 nF"
         value = _text_value(raw["value"], kind, f"{path}.value", r)
@@ -509,68 +413,6 @@ def _text_value(text: str, kind: str, where: str, r) -> float:
         raise r.fail(where, f"{text!r} must be positive", "a positive value such as '4k7' "
                      "or '100 nF'")
     return value
-
-
-def check_connectivity(design: Design, file: str = "<design>") -> None:
-    """Refuse nets a solver could not make sense of: unknown terminals, dangling nodes."""
-    r = _Reader(file)
-    touches: Counter[str] = Counter()
-    for p in design.parts:
-        for n in set(p.nodes):
-            touches[n] += 1
-    for key, node in (("supply.node", design.supply_node), ("input", design.input),
-                      ("output", design.output)):
-        if touches[node] == 0:
-            raise r.fail(key, f"node {node!r} is not connected to any part",
-                         "a node that appears in some part's nodes")
-    if touches[design.ground] == 0:
-        raise r.fail("ground", f"ground node {design.ground!r} is not connected to any part",
-                     "the name of the node parts use for ground")
-    if len({design.supply_node, design.input, design.output, design.ground}) < 4:
-        raise r.fail("input", "ground, supply, input and output must be four different nodes",
-                     "distinct node names")
-    external = {design.ground, design.supply_node, design.input, design.output}
-    for p in design.parts:
-        for n in p.nodes:
-            if n not in external and touches[n] < 2:
-                raise r.fail(f"parts ({p.ref})", f"node {n!r} is left floating: only {p.ref} "
-                             "connects to it", "a node shared by at least two parts")
-    _check_islands(design, r)
-
-
-def _check_islands(design: Design, r: _Reader) -> None:
-    """Refuse parts with no path to ground at signal frequencies (a singular circuit).
-
-    Supply and ground are one node for the signal; a transistor joins its three
-    terminals (r_pi, r_o, C_mu). A group of parts that touches neither is a floating
-    island: its node voltages are undefined, so the solvers' matrices are singular.
-    """
-    parent: dict[str, str] = {}
-
-    def find(x: str) -> str:
-        root = x
-        while parent.setdefault(root, root) != root:
-            root = parent[root]
-        while parent[x] != root:  # path compression, iterative (no recursion limit)
-            parent[x], x = root, parent[x]
-        return root
-
-    def join(a: str, b: str) -> None:
-        parent[find(a)] = find(b)
-
-    join(design.supply_node, design.ground)
-    for p in design.parts:
-        for n in p.nodes[1:]:
-            join(p.nodes[0], n)
-    ground = find(design.ground)
-    for p in design.parts:
-        for n in p.nodes:
-            if find(n) != ground:
-                island = sorted(q.ref for q in design.parts if find(q.nodes[0]) == find(n))
-                raise r.fail(f"parts ({p.ref})",
-                             f"node {n!r} floats: {', '.join(island)} connect(s) to neither "
-                             "ground nor the supply, so its voltage is undefined",
-                             "every part connected, through other parts, to ground or supply")
 
 
 def load_design(path: str | Path) -> Design:

@@ -111,3 +111,39 @@ def nesting_depth(obj: Any) -> int:
         elif isinstance(item, list | tuple):
             stack.extend((v, level + 1) for v in item)
     return deepest
+
+
+# Junction-FET fields (contract section 2, "Junction FET"); |vp| bounds apply to both ends.
+JFET_LIMITS: dict[str, Limit] = {
+    "idss": Limit(1e-7, 10.0, "A", "a drain current at VGS = 0"),
+    "vp": Limit(0.05, 30.0, "V", "a pinch-off voltage magnitude"),
+    "early_voltage": Limit(1.0, 1e15, "V"),
+    "c_gs": Limit(0.0, 1e-8, "F"),
+    "c_gd": Limit(0.0, 1e-8, "F"),
+    "i_gss": Limit(0.0, 1e-5, "A", "a gate leakage current"),
+    "vp_tempco": Limit(-0.02, 0.02, "V/K", "about -2 mV/K"),
+    "idss_tempco": Limit(-0.05, 0.05, "%/K", "about -0.6 %/K"),
+    "flicker_corner": Limit(0.0, 1e9, "Hz"),
+    "vds_max": Limit(1.0, 1e4, "V"),
+    "p_max": Limit(1e-3, 1e4, "W"),
+    "theta_ja": Limit(0.1, 1e4, "K/W"),
+}
+
+
+def jfet_problem(device) -> tuple[str, str, str] | None:
+    """The first field of a junction-FET record outside its limits (as `device_problem`)."""
+    for name, values in (("idss", (device.idss_min, device.idss_max)),
+                         ("vp", tuple(abs(v) for v in device.vp))):
+        limit = JFET_LIMITS[name]
+        for value in values:
+            if out_of_range(float(value), limit):
+                return (name, f"{format_quantity(value, limit.unit)} is outside the range "
+                        "the model holds for", limit.accepted())
+    for key, limit in JFET_LIMITS.items():
+        if key in ("idss", "vp"):
+            continue
+        value = getattr(device, key, None)
+        if value is not None and out_of_range(float(value), limit):
+            return (key, f"{format_quantity(value, limit.unit)} is outside the range the "
+                    "model holds for", limit.accepted())
+    return None
