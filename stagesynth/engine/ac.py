@@ -300,7 +300,8 @@ class AcSystem:
         """Per volt at the load: |ic| and |vce| of each transistor at `freq`: (B, nQ) each.
 
         ic is the intrinsic collector current gm*v_b'e + v_ce/ro, the current that
-        reaches zero at cutoff.
+        reaches zero at cutoff; for a junction FET the drain current and |v_ds - v_gs|,
+        the signal on its distance from the saturation edge VDS = VGS - VP.
         """
         v = self.node_voltages(np.asarray(freq, dtype=float).reshape(self.batch, 1))[:, 0, :]
         return self.swing_ratios_of(v)
@@ -311,11 +312,14 @@ class AcSystem:
         v_ext = np.concatenate([v, np.zeros((self.batch, 2), dtype=complex)], axis=1)
         ic = np.empty(self.gm.shape)
         vce = np.empty(self.gm.shape)
-        for k, q in enumerate(self.circuit.bjts):
+        nb = len(self.circuit.bjts)
+        for k, q in enumerate(self.circuit.transistors):
             vpi = v_ext[:, q.bi] - v_ext[:, q.e]
             vc_e = v_ext[:, q.c] - v_ext[:, q.e]
             ic[:, k] = np.abs(self.gm[:, k] * vpi + vc_e / self.r_o[:, k]) / v_load
-            vce[:, k] = np.abs(vc_e) / v_load
+            # a FET leaves saturation where VDS - (VGS - VP) reaches 0: that margin
+            # moves with v_ds - v_gs = v_dg
+            vce[:, k] = np.abs(vc_e - vpi if k >= nb else vc_e) / v_load
         return ic, vce
 
 
@@ -342,7 +346,7 @@ def linearize(
     C = np.einsum("ik,bk,jk->bij", ac, c_values, ac) if ac.shape[1] else np.zeros(
         (B, n + 2, n + 2)
     )
-    nq = len(circuit.bjts)
+    nq = circuit.nq
     gms = np.empty((B, nq))
     ros = np.empty((B, nq))
     for k, q in enumerate(circuit.bjts):
@@ -359,6 +363,11 @@ def linearize(
         G[:, q.c, q.e] -= hp.gm
         G[:, q.e, q.bi] -= hp.gm
         G[:, q.e, q.e] += hp.gm
+    if circuit.jfets:
+        from stagesynth.engine.jfet_ac import stamp_jfets
+
+        nb = len(circuit.bjts)
+        gms[:, nb:], ros[:, nb:] = stamp_jfets(circuit, dc, G, C)
     bc = lambda x: np.broadcast_to(np.asarray(x, dtype=float), (B,)).copy()  # noqa: E731
     return AcSystem(
         circuit=circuit,

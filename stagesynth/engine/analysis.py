@@ -15,11 +15,18 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from stagesynth.contracts.device import T_REF_C
+from stagesynth.contracts.jfet import NOMINAL_U, is_jfet
 from stagesynth.contracts.netlist import Design
 from stagesynth.engine.ac import AcSystem
 from stagesynth.engine.circuit import Circuit, compile_design
 from stagesynth.engine.distortion import DistortionRequest
-from stagesynth.engine.evaluate import IC_ACTIVE_MIN, Conditions, Figures, evaluate
+from stagesynth.engine.evaluate import (
+    IC_ACTIVE_MIN,
+    ID_ACTIVE_MIN,
+    Conditions,
+    Figures,
+    evaluate,
+)
 from stagesynth.engine.noise import NoisePlan
 
 
@@ -88,6 +95,18 @@ class TransistorState:
     swing_cut: float  # peak load amplitude that drives it to cutoff
     swing_sat: float  # peak load amplitude that drives it to VCE = vce_sat
     region: str = "active"  # "active", "saturated", "cut off" or "no DC solution"
+    # junction FET (second release): ic is ID, vce VDS, vbe VGS, ib the gate current,
+    # hfe nan; vsat the VDS where the active region ends (VGS - VP; vce_sat for a BJT);
+    # idss and vp (signed as the device's polarity) of this unit at Tj
+    kind: str = "bjt"
+    vsat: float = math.nan
+    idss: float | None = None
+    vp: float | None = None
+
+    @property
+    def vgs(self) -> float:
+        """Gate-source voltage of a junction FET (N-channel frame), the same as vbe."""
+        return self.vbe
 
 
 @dataclass(frozen=True)
@@ -222,14 +241,40 @@ class Analysis:
         return max(getattr(c, attr) for c in self.corners)
 
 
+def spread_values(device) -> tuple[float, float, float]:
+    """(min, nominal, max) of a device's spread axis: hFE at 25 degC for a bipolar
+    transistor; the pairing position u (0, 0.5, 1) for a junction FET (contract)."""
+    if is_jfet(device):
+        return 0.0, NOMINAL_U, 1.0
+    return device.hfe_min, device.hfe_nominal, device.hfe_max
+
+
+def _case_label(design: Design, names: list[str], cases: tuple[str, ...]) -> str:
+    """"hFE min", "IDSS max" or "hFE min, IDSS max" (IDSS min pairs with the vp nearest
+    zero): the spread corner of each kind of device, as the corner labels read."""
+    parts = []
+    for word, want in (("hFE", False), ("IDSS", True)):
+        cs = tuple(c for n, c in zip(names, cases, strict=True)
+                   if is_jfet(design.devices[n]) == want)
+        if cs:
+            case = "/".join(sorted(set(cs), key=cs.index)) if len(set(cs)) <= 1 \
+                else "/".join(cs)
+            parts.append(f"{word} {case}")
+    return ", ".join(parts) if parts else "hFE none"
+
+
 def corner_conditions(design: Design, env: Environment) -> list[Condition]:
-    """Nominal first, then every distinct corner of the reference model."""
+    """Nominal first, then every distinct corner of the reference model.
+
+    Each device's spread takes its two ends: hFE min and max for a bipolar transistor,
+    u = 0 and 1 along the IDSS/VP pairing for a junction FET (contract section 2).
+    """
     names = sorted(design.devices)
     v0 = design.supply_voltage
     nominal = Condition(
         "nominal",
         "typ",
-        {n: design.devices[n].hfe_nominal for n in names},
+        {n: spread_values(design.devices[n])[1] for n in names},
         T_REF_C,
         v0,
     )
@@ -238,7 +283,7 @@ def corner_conditions(design: Design, env: Environment) -> list[Condition]:
     out = [nominal]
     for cases in itertools.product(("min", "max"), repeat=len(names)):
         hfe = {
-            n: design.devices[n].hfe_min if c == "min" else design.devices[n].hfe_max
+            n: spread_values(design.devices[n])[0 if c == "min" else 2]
             for n, c in zip(names, cases, strict=True)
         }
         # with no transistor at all only the ambient and the supply vary
@@ -246,7 +291,7 @@ def corner_conditions(design: Design, env: Environment) -> list[Condition]:
         case = case if len(set(cases)) <= 1 else "/".join(cases)
         for amb in ambients:
             for vs in supplies:
-                label = f"hFE {case}, {amb:g} °C, {vs:.4g} V"
+                label = f"{_case_label(design, names, cases)}, {amb:g} °C, {vs:.4g} V"
                 out.append(Condition(label, case, hfe, amb, vs))
     return out
 
@@ -263,22 +308,24 @@ def condition_arrays(circuit: Circuit, conditions: list[Condition]) -> Condition
     """Condition list -> the arrays the batched evaluator takes."""
     return Conditions(
         hfe25=np.array(
-            [[cond.hfe[q.device_name] for q in circuit.bjts] for cond in conditions]
-        ).reshape(len(conditions), len(circuit.bjts)),
+            [[cond.hfe[q.device_name] for q in circuit.transistors] for cond in conditions]
+        ).reshape(len(conditions), circuit.nq),
         ambient=np.array([cond.ambient for cond in conditions]),
         supply=np.array([cond.supply for cond in conditions]),
     )
 
 
-def region(converged: bool, ic: float, vce: float, vce_sat: float) -> str:
+def region(converged: bool, ic: float, vce: float, vce_sat: float, *,
+           jfet: bool = False) -> str:
     """Operating region as the contract counts it: cut off below IC = 100 nA (checked
-    first: a starved transistor has no meaningful VCE(sat)), saturated below vce_sat."""
+    first: a starved transistor has no meaningful VCE(sat)), saturated below vce_sat.
+    A junction FET: cut off below ID = 1 uA, "triode" below VDS = VGS - VP."""
     if not converged:
         return "no DC solution"
-    if ic < IC_ACTIVE_MIN:
+    if ic < (ID_ACTIVE_MIN if jfet else IC_ACTIVE_MIN):
         return "cut off"
     if vce < vce_sat:
-        return "saturated"
+        return "triode" if jfet else "saturated"
     return "active"
 
 
@@ -288,14 +335,18 @@ def point_results(
     """Per-condition DC state and swing of value set `k`, as readable records."""
     names = [*circuit.node_names, "ground", "supply"]
     m = len(conditions)
-    nq = len(circuit.bjts)
+    nq = circuit.nq
+    nb = len(circuit.bjts)
     dc = fig.dc
-    vce_sat = np.array([q.device.vce_sat for q in circuit.bjts])
     results = []
     for j, cond in enumerate(conditions):
         i = k * m + j
         states = {}
-        for q_i, q in enumerate(circuit.bjts):
+        for q_i, q in enumerate(circuit.transistors):
+            fet = q_i >= nb
+            vce_sat = dc.vsat[i]
+            reg = region(bool(dc.converged[i]), float(dc.ic[i, q_i]), float(dc.vce[i, q_i]),
+                         float(vce_sat[q_i]), jfet=fet)
             states[q.ref] = TransistorState(
                 ic=float(dc.ic[i, q_i]),
                 vce=float(dc.vce[i, q_i]),
@@ -304,16 +355,20 @@ def point_results(
                 tj=float(dc.tj[i, q_i]),
                 hfe=float(dc.hfe[i, q_i]),
                 power=float(dc.power[i, q_i]),
-                active=region(bool(dc.converged[i]), float(dc.ic[i, q_i]),
-                              float(dc.vce[i, q_i]), float(vce_sat[q_i])) == "active",
+                active=reg == "active",
                 swing_cut=float(fig.a_cut[k, j, q_i]),
                 swing_sat=float(fig.a_sat[k, j, q_i]),
-                region=region(bool(dc.converged[i]), float(dc.ic[i, q_i]),
-                              float(dc.vce[i, q_i]), float(vce_sat[q_i])),
+                region=reg,
+                kind="jfet" if fet else "bjt",
+                vsat=float(vce_sat[q_i]),
+                idss=float(dc.idss[i, q_i - nb]) if fet else None,
+                vp=float(q.device.sign * dc.vp[i, q_i - nb]) if fet else None,
             )
         if fig.active[k, j] and nq:
             e = int(fig.swing_edge[k, j])
-            limit = f"{circuit.bjts[e % nq].ref} {'cutoff' if e < nq else 'saturation'}"
+            q_e = circuit.transistors[e % nq]
+            edge = "cutoff" if e < nq else ("the triode edge" if e % nq >= nb else "saturation")
+            limit = f"{q_e.ref} {edge}"
         else:
             out = [f"{ref} {s.region}" for ref, s in states.items() if s.region != "active"]
             limit = ("not in the active region: " + ", ".join(out)) if dc.converged[i] and out \

@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from stagesynth.contracts.device import Device
+from stagesynth.contracts.jfet import Jfet
 from stagesynth.contracts.netlist import Design
 
 
@@ -24,6 +25,35 @@ class CompiledBjt:
     b: int  # external base terminal
     bi: int  # internal base node b' (== b when r_bb is 0)
     e: int
+
+
+@dataclass(frozen=True)
+class CompiledJfet:
+    """A junction FET in index form; `c`, `bi`, `e` name drain, gate and source too, so
+    code that walks the three terminals of any transistor reads both kinds alike."""
+
+    ref: str
+    device_name: str
+    device: Jfet
+    d: int
+    g: int
+    s: int
+
+    @property
+    def c(self) -> int:
+        return self.d
+
+    @property
+    def b(self) -> int:
+        return self.g
+
+    @property
+    def bi(self) -> int:
+        return self.g
+
+    @property
+    def e(self) -> int:
+        return self.s
 
 
 @dataclass(frozen=True)
@@ -41,6 +71,18 @@ class Circuit:
     bjts: tuple[CompiledBjt, ...]
     input: int
     output: int
+    jfets: tuple[CompiledJfet, ...] = ()  # junction FETs (second release)
+
+    @property
+    def transistors(self) -> tuple[CompiledBjt | CompiledJfet, ...]:
+        """Bipolar transistors first, then junction FETs: the column order of every
+        per-transistor array (DC points, swing ratios, conditions' spread values)."""
+        return self.bjts + self.jfets
+
+    @property
+    def nq(self) -> int:
+        """Number of transistors of either kind."""
+        return len(self.bjts) + len(self.jfets)
 
     @property
     def n(self) -> int:
@@ -93,7 +135,12 @@ def compile_design(design: Design) -> Circuit:
         c, b, e = (index[x] for x in p.nodes)
         bi = index[bjt_internal[p.ref]] if p.ref in bjt_internal else b
         bjts.append(CompiledBjt(p.ref, p.device, design.devices[p.device], c, b, bi, e))
+    jfets = tuple(
+        CompiledJfet(p.ref, p.device, design.devices[p.device], *(index[x] for x in p.nodes))
+        for p in design.jfets
+    )
     return Circuit(
+        jfets=jfets,
         node_names=tuple(names),
         index=index,
         resistors=resistors,

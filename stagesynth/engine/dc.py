@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from stagesynth.contracts.device import hfe_at, saturation_current, thermal_voltage
+from stagesynth.engine import jfet_dc
 from stagesynth.engine.circuit import Circuit
 
 GMIN = 1e-12  # S from every node to ground, so DC-floating nodes stay defined
@@ -28,8 +29,10 @@ _MAX_EXP_ARG = 80.0  # beyond this the exponential is continued linearly
 class DcBatch:
     """Operating points of B copies of one circuit.
 
-    BJT arrays are (B, nQ), polarity-normalized: ic, ib, vbe, vce are positive in
-    the forward-active region for NPN and PNP alike.
+    Transistor arrays are (B, nQ), bipolar transistors first, then junction FETs
+    (circuit.transistors), polarity-normalized: ic, ib, vbe, vce are positive in the
+    forward-active region for NPN and PNP alike. For a junction FET they hold ID, the
+    gate current (-i_gss: leakage flows out of the gate), VGS and VDS (N-channel frame).
     """
 
     v: np.ndarray  # (B, n+2) node voltages, ground and supply last
@@ -42,6 +45,11 @@ class DcBatch:
     supply_current: np.ndarray  # (B,) A drawn from the supply
     converged: np.ndarray  # (B,) bool
     iterations: int
+    # junction FETs (second release): where each transistor leaves its active region,
+    # (B, nQ): vce_sat for a bipolar transistor, VGS - VP(Tj) for a FET (saturation ends)
+    vsat: np.ndarray | None = None
+    idss: np.ndarray | None = None  # (B, nJ) IDSS(Tj) of each FET's unit
+    vp: np.ndarray | None = None  # (B, nJ) VP(Tj), N frame (negative)
 
     @property
     def power(self) -> np.ndarray:
@@ -101,10 +109,14 @@ class _Model:
         self.ambient = ambient
         self.hfe25 = hfe25
         self.bjts = circuit.bjts
+        self.jfets = circuit.jfets
+        self.nb = len(circuit.bjts)
+        self.terms = [(q.c, q.bi, q.e) for q in circuit.transistors]
+        self.signs = [q.device.sign for q in circuit.transistors]
         self.rbb = np.array([q.device.r_bb for q in self.bjts])
         self.sign = np.array([q.device.sign for q in self.bjts], dtype=float)
         self.va = np.array([q.device.early_voltage for q in self.bjts])
-        self.theta = np.array([q.device.theta_ja or 0.0 for q in self.bjts])
+        self.theta = np.array([q.device.theta_ja or 0.0 for q in circuit.transistors])
         self.vce_sat = np.array([q.device.vce_sat for q in self.bjts])
         self.beta_r = np.array([q.device.hfe_reverse for q in self.bjts])
 
@@ -118,12 +130,12 @@ class _Model:
         return is_, thermal_voltage(tj), hfe
 
     def junctions(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        vbe = np.empty((self.B, len(self.bjts)))
+        """(VBE, VCE) of every transistor, (B, nQ): junction FETs give (VGS, VDS)."""
+        vbe = np.empty((self.B, len(self.terms)))
         vce = np.empty_like(vbe)
-        for k, q in enumerate(self.bjts):
-            s = q.device.sign
-            vbe[:, k] = s * (v[:, q.bi] - v[:, q.e])
-            vce[:, k] = s * (v[:, q.c] - v[:, q.e])
+        for k, ((c, bi, e), s) in enumerate(zip(self.terms, self.signs, strict=True)):
+            vbe[:, k] = s * (v[:, bi] - v[:, e])
+            vce[:, k] = s * (v[:, c] - v[:, e])
         return vbe, vce
 
     def evaluate(self, v: np.ndarray, tj: np.ndarray, pivot: np.ndarray | None = None):
@@ -135,8 +147,12 @@ class _Model:
         """
         F = np.einsum("bij,bj->bi", self.G, v)
         J = self.G.copy()
+        nb = self.nb
+        fet = jfet_dc.stamp(self.jfets, v, self.hfe25[:, nb:], tj[:, nb:], F, J)
+        tj = tj[:, :nb]
         is_, vt, hfe = self.device_params(tj)
         vbe, vce = self.junctions(v)
+        vbe, vce = vbe[:, :nb], vce[:, :nb]
         at = vbe if pivot is None else pivot
         ex, dex = _limexp(at / vt)
         early = 1.0 + vce / self.va
@@ -183,8 +199,16 @@ class _Model:
                 J[:, node, q.bi] += d_vbe[t]
                 J[:, node, q.e] -= d_vbe[t] + d_vce[t]
                 J[:, node, q.c] += d_vce[t]
-        return F, J, dict(ic=ic, ib=ib, vbe=vbe, vce=vce, hfe=hfe, vt=vt, is_=is_,
-                          gm=dic_dvbe, go=dic_dvce)
+        def cat(a, b):
+            return np.concatenate([a, b], axis=1)
+
+        nan = np.full_like(fet["ic"], np.nan)
+        vsat = cat(np.broadcast_to(self.vce_sat, ic.shape), fet["vsat"])
+        return F, J, dict(ic=cat(ic, fet["ic"]), ib=cat(ib, fet["ib"]),
+                          vbe=cat(vbe, fet["vbe"]), vce=cat(vce, fet["vce"]),
+                          hfe=cat(hfe, nan), vt=vt, is_=is_, gm=cat(dic_dvbe, fet["gm"]),
+                          go=cat(dic_dvce, fet["go"]), vsat=vsat, idss=fet["idss"],
+                          vp=fet["vp"])
 
 
 def _newton(
@@ -209,7 +233,8 @@ def _newton(
     """
     free = model.free
     nf = free.size
-    nq = len(model.bjts)
+    nq = len(model.terms)
+    nb = model.nb
     B = model.B
     v = v.copy()
     tj = tj.copy()
@@ -238,7 +263,7 @@ def _newton(
         A[:, nf:, nf:] = np.eye(nq)
         if heats:
             col = {int(node): k for k, node in enumerate(free)}
-            for k, bq in enumerate(model.bjts):
+            for k, ((tc, tb, te), s_) in enumerate(zip(model.terms, model.signs, strict=True)):
                 if model.theta[k] == 0:
                     continue
                 dt = 1e-3
@@ -251,11 +276,10 @@ def _newton(
                 # dP/dv at the terminals (sign s cancels pairwise as in the KCL stamps)
                 gm = q["gm"][:, k]
                 go = q["go"][:, k]
-                s_ = bq.device.sign
                 dp = {
-                    bq.c: s_ * (ic[:, k] + vce[:, k] * go),
-                    bq.bi: s_ * vce[:, k] * gm,
-                    bq.e: -s_ * (ic[:, k] + vce[:, k] * (gm + go)),
+                    tc: s_ * (ic[:, k] + vce[:, k] * go),
+                    tb: s_ * vce[:, k] * gm,
+                    te: -s_ * (ic[:, k] + vce[:, k] * (gm + go)),
                 }
                 for node, val in dp.items():
                     if node in col:
@@ -268,12 +292,17 @@ def _newton(
         step[:, free] = dx[:, :nf]
         dtj = dx[:, nf:]
         # junction limiting: above vcrit a junction may grow by VT*ln(1 + dV/VT)
-        vbe_new, vce_new = model.junctions(v + step)
+        vbe_all, vce_all = model.junctions(v + step)
+        vbe_new, vce_new = vbe_all[:, :nb], vce_all[:, :nb]
         vt = q["vt"]
         limit = np.ones_like(vbe_new)
-        for new, old in ((vbe_new, q["vbe"]), (vbe_new - vce_new, q["vbe"] - q["vce"])):
+        if nq > nb:  # junction FETs: VGS moves by a bounded amount per step
+            limit = np.concatenate([limit, jfet_dc.step_limit(
+                model.jfets, q["vbe"][:, nb:], vbe_all[:, nb:])], axis=1)
+        for new, old in ((vbe_new, q["vbe"][:, :nb]),
+                         (vbe_new - vce_new, q["vbe"][:, :nb] - q["vce"][:, :nb])):
             dj = new - old  # the base-emitter, then the base-collector junction
-            limit = np.minimum(limit, np.where(
+            limit[:, :nb] = np.minimum(limit[:, :nb], np.where(
                 (new > vcrit) & (dj > 2.0 * vt),
                 vt * np.log1p(np.maximum(dj, 0.0) / vt) / np.where(dj > 0, dj, 1.0),
                 1.0,
@@ -329,7 +358,7 @@ def solve_dc(
     """
     supply = np.asarray(supply, dtype=float)
     B = supply.shape[0]
-    nq = len(circuit.bjts)
+    nq = circuit.nq
     args = (
         np.asarray(r_values, dtype=float).reshape(B, -1),
         supply,
@@ -379,4 +408,7 @@ def solve_dc(
         supply_current=supply_current,
         converged=ok & np.all(np.isfinite(v), axis=1),
         iterations=iters,
+        vsat=q["vsat"],
+        idss=q["idss"],
+        vp=q["vp"],
     )

@@ -21,11 +21,17 @@ from stagesynth.engine.distortion import DistortionRequest, distortion_figures
 from stagesynth.engine.noise import NoisePlan, NoiseSources
 
 IC_ACTIVE_MIN = 100e-9  # A: below this collector current a transistor counts as cut off
+ID_ACTIVE_MIN = 1e-6  # A: a junction FET counts as active from this drain current (contract)
 
 
 @dataclass(frozen=True)
 class Conditions:
-    """M operating conditions as arrays: hFE at 25 degC per transistor, ambient, supply.
+    """M operating conditions as arrays: the spread value per transistor, ambient, supply.
+
+    `hfe25[..., k]` is transistor k's position in its production spread (columns in
+    circuit.transistors order): hFE at 25 degC for a bipolar transistor, the pairing
+    position u in [0, 1] for a junction FET (0: idss min with the vp nearest zero,
+    1: idss max with the vp farthest, 0.5 nominal).
 
     Shared by every value set: hfe25 (M, nQ), ambient and supply (M,). Or, for a
     Monte Carlo where each unit has its own transistor and supply, one set per
@@ -155,7 +161,7 @@ def evaluate(
     c_values = np.atleast_2d(np.asarray(c_values, dtype=float))
     k = r_values.shape[0]
     m = conditions.count
-    nq = len(circuit.bjts)
+    nq = circuit.nq
     # member index = k*M + m
     r_rep = np.repeat(r_values, m, axis=0)
     c_rep = np.repeat(c_values, m, axis=0)
@@ -183,9 +189,11 @@ def evaluate(
     # swing at every condition (section 2): cutoff or saturation, whichever comes first,
     # with the small-signal ratios at midband and at the required f_high (second release)
     ic_ratio, vce_ratio = system.swing_ratios_of(v_mid)
-    vce_sat = np.array([q.device.vce_sat for q in circuit.bjts])
-    # contract section 2 (second release): active only with VCE >= vce_sat and IC >= 100 nA
-    q_active = (dc.vce >= vce_sat) & (dc.ic >= IC_ACTIVE_MIN) & dc.converged[:, None]
+    vce_sat = dc.vsat  # (K*M, nQ): vce_sat, or VGS - VP for a junction FET
+    # contract section 2 (second release): active only with VCE >= vce_sat and IC >= 100 nA;
+    # a junction FET in saturation (VDS >= VGS - VP) with ID >= 1 uA
+    q_active = (dc.vce >= vce_sat) & (dc.ic >= active_current_floor(circuit)) \
+        & dc.converged[:, None]
     all_active = np.all(q_active, axis=1) & dc.converged
     swing_mid = _swing(dc, ic_ratio, vce_ratio, vce_sat, all_active)[0]
     swing_top = np.full(k * m, np.nan)
@@ -266,6 +274,11 @@ def evaluate(
         thd_freq=None if dist is None else dist.freq,
         thd_method="" if dist is None else dist.method,
     )
+
+
+def active_current_floor(circuit: Circuit) -> np.ndarray:
+    """(nQ,) the least current at which each transistor counts as active (contract)."""
+    return np.array([IC_ACTIVE_MIN] * len(circuit.bjts) + [ID_ACTIVE_MIN] * len(circuit.jfets))
 
 
 def _swing(dc: DcBatch, ic_ratio: np.ndarray, vce_ratio: np.ndarray, vce_sat: np.ndarray,

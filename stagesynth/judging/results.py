@@ -9,13 +9,34 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from stagesynth.engine.analysis import Analysis, PointResult
+from stagesynth.engine.analysis import Analysis, PointResult, TransistorState
 from stagesynth.judging.verdict import Verdict
 
 
 def _num(x: float) -> float | None:
     """JSON-safe float: inf/nan become None (the text report says 'none' / 'n/a')."""
     return float(x) if math.isfinite(x) else None
+
+
+def transistor_dict(s: TransistorState) -> dict[str, Any]:
+    """One transistor's DC state; a junction FET's ic is ID and vce VDS (polarity-
+    normalized, as the bipolar magnitudes), with vgs, idss and vp (its unit at Tj)."""
+    out: dict[str, Any] = {
+        "kind": s.kind,
+        "ic": s.ic,
+        "vce": s.vce,
+        "vbe": s.vbe,
+        "ib": s.ib,
+        "tj": s.tj,
+        "hfe": _num(s.hfe),
+        "power": s.power,
+        "active": s.active,
+        "region": s.region,
+    }
+    if s.kind == "jfet":
+        out.update(vgs=s.vgs, ig=s.ib, vds_edge=_num(s.vsat), idss=s.idss, vp=s.vp)
+        del out["vbe"], out["ib"], out["hfe"]
+    return out
 
 
 def point_to_dict(p: PointResult) -> dict[str, Any]:
@@ -33,20 +54,7 @@ def point_to_dict(p: PointResult) -> dict[str, Any]:
         "swing_vpp": p.swing_vpp,
         "swing_limit": p.swing_limit,
         "supply_current": p.supply_current,
-        "transistors": {
-            ref: {
-                "ic": s.ic,
-                "vce": s.vce,
-                "vbe": s.vbe,
-                "ib": s.ib,
-                "tj": s.tj,
-                "hfe": s.hfe,
-                "power": s.power,
-                "active": s.active,
-                "region": s.region,
-            }
-            for ref, s in p.transistors.items()
-        },
+        "transistors": {ref: transistor_dict(s) for ref, s in p.transistors.items()},
         "node_voltages": dict(p.node_voltages),
         **_noise_keys(p),
         **response_dict(p),

@@ -61,10 +61,10 @@ def transistor_cells(s, vce_sat: float) -> tuple[str, str, str]:
     ic, vce = fmt(s.ic, "A"), fmt(s.vce, "V")
     if s.active:
         return ic, vce, fmt(s.vce * s.ic, "W")
-    if s.ic <= ACTIVE_IC_MIN:
+    if s.region == "cut off" or (s.kind == "bjt" and s.ic <= ACTIVE_IC_MIN):
         ic += " (cut off)"
     if s.vce < vce_sat:
-        vce += " (saturated)"
+        vce += " (triode)" if s.kind == "jfet" else " (saturated)"
     return ic, vce, fmt(max(s.vce * s.ic + s.vbe * s.ib, 0.0), "W") + " (not active)"
 
 
@@ -155,7 +155,8 @@ def supply_stability_rows(analysis: Analysis) -> list[list[str]]:
 def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
     d = analysis.design
     out = [f"{d.title or 'design'}" + (f"  [{d.topology}]" if d.topology else "")]
-    out.append(f"midband {fmt(analysis.midband, 'Hz')}; nominal: hFE typ, 25 °C, "
+    spread = " and ".join(w for w, on in (("hFE typ", d.bjts), ("IDSS/VP typ", d.jfets)) if on)
+    out.append(f"midband {fmt(analysis.midband, 'Hz')}; nominal: {spread or 'typ'}, 25 °C, "
                f"{fmt(d.supply_voltage, 'V')} supply")
     out.append("")
     worst = min(analysis.corners, key=lambda c: c.swing_vpp)
@@ -183,16 +184,19 @@ def analysis_table(analysis: Analysis, verdict: Verdict | None = None) -> str:
         out.append(f"warning: at nominal {', '.join(off)}; the small-signal figures above "
                    "assume the active region and do not describe this stage")
     out.append("")
-    refs = [p.ref for p in d.bjts]
-    sat = {p.ref: d.devices[p.device].vce_sat for p in d.bjts}
-    header = ["condition"] + [f"{r} {x}" for r in refs for x in ("IC", "VCE", "Tj")] + [
+    refs = [p.ref for p in d.transistors]
+    sat = {r: analysis.nominal.transistors[r].vsat for r in refs}
+    fets = {p.ref for p in d.jfets}
+    header = ["condition"] + [f"{r} {x}" for r in refs
+                              for x in (("ID", "VDS", "Tj") if r in fets else ("IC", "VCE", "Tj"))
+                              ] + [
         "supply I", "swing", "limited by", "THD"]
     rows = []
     for p in (analysis.nominal, *analysis.corners):
         row = [p.condition.label]
         for r in refs:
             s = p.transistors[r]
-            ic, vce, _ = transistor_cells(s, sat[r])
+            ic, vce, _ = transistor_cells(s, s.vsat if r in fets else sat[r])
             row += [ic, vce, f"{s.tj:.1f} °C"]
         row += [fmt(p.supply_current, "A"), fmt(p.swing_vpp, "Vpp"), p.swing_limit,
                 fmt(p.thd, "%") if p.thd is not None else "n/a"]

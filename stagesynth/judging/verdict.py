@@ -295,7 +295,7 @@ def _rating_rows(fig: Figures, circuit: Circuit, corners: slice = slice(1, None)
     the self-heating model as Ta = Tj - theta_ja * P.
     """
     rows = []
-    for qi, q in enumerate(circuit.bjts):
+    for qi, q in enumerate(circuit.transistors):  # a junction FET: vds_max and p_max
         dev = q.device
         for field, attr, unit in (("ic_max", "ic", "A"), ("vce_max", "vce", "V"),
                                   ("p_max", "power", "W")):
@@ -318,7 +318,9 @@ def _rating_rows(fig: Figures, circuit: Circuit, corners: slice = slice(1, None)
                 continue
             j = np.argmax(vals, axis=1)
             worst = vals[np.arange(vals.shape[0]), j]
-            rows.append(_at_most(f"{q.ref}.{field}", worst, rating, unit, "every corner",
+            name = "vds_max" if field == "vce_max" and getattr(dev, "kind", "") == "jfet" \
+                else field
+            rows.append(_at_most(f"{q.ref}.{name}", worst, rating, unit, "every corner",
                                  j + corners.start))
     return rows
 
@@ -468,10 +470,8 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
 def _saturation_headroom(analysis: Analysis, points) -> float:
     """Smallest VCE − VCE(sat) over the transistors and the judged conditions (V): how far
     the stage is from saturating, the number behind "active at every corner"."""
-    design = analysis.design
-    sat = {p.ref: design.devices[p.device].vce_sat for p in design.bjts}
-    gaps = [s.vce - sat[ref] for p in points if p.converged
-            for ref, s in p.transistors.items() if ref in sat]
+    gaps = [s.vce - s.vsat for p in points if p.converged
+            for s in p.transistors.values() if math.isfinite(s.vsat)]
     return min(gaps, default=math.nan)
 
 
