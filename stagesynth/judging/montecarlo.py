@@ -85,16 +85,21 @@ def wilson_interval(passed: int, n: int, z: float = Z95) -> tuple[float, float]:
 
 
 def sample_units(design: Design, spec: Spec, n: int, rng: np.random.Generator) -> Sample:
-    """Draw n units as section 2 says (uniform parts and supply, log-uniform hFE)."""
+    """Draw n units as section 2 says (uniform parts and supply, log-uniform hFE, a junction
+    FET's spread position u uniform)."""
     circuit = compile_design(design)
     r0, c0 = batch_values(design, circuit)
     tr, tc = spec.parts.resistor_tolerance, spec.parts.capacitor_tolerance
     r = r0 * (1.0 + rng.uniform(-tr, tr, size=(n, r0.shape[1])))
     c = c0 * (1.0 + rng.uniform(-tc, tc, size=(n, c0.shape[1])))
+    nb = len(circuit.bjts)
     lo = np.array([q.device.hfe_min for q in circuit.bjts])
     hi = np.array([q.device.hfe_max for q in circuit.bjts])
-    u = rng.uniform(size=(n, lo.size))
-    hfe25 = np.exp(np.log(lo) + u * (np.log(hi) - np.log(lo)))
+    # one draw per transistor: hFE log-uniform; a junction FET's position u along its
+    # IDSS/VP pairing uniform in [0, 1] (IDSS and VP drawn together, contract)
+    u = rng.uniform(size=(n, circuit.nq))
+    hfe25 = u.copy()
+    hfe25[:, :nb] = np.exp(np.log(lo) + u[:, :nb] * (np.log(hi) - np.log(lo)))
     ts = spec.supply.tolerance
     supply = design.supply_voltage * (1.0 + rng.uniform(-ts, ts, size=n))
     return Sample(r, c, hfe25, supply)

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from stagesynth.contracts.jfet import NOMINAL_U
 from stagesynth.contracts.netlist import Design
 from stagesynth.contracts.spec import Spec
 from stagesynth.engine.analysis import Environment, batch_values
@@ -64,6 +65,8 @@ def sources(design: Design, spec: Spec) -> list[Source]:
     for q in circuit.bjts:
         half = 0.5 * math.log(q.device.hfe_max / q.device.hfe_min)
         out.append(Source(f"hFE {q.ref}", half, log_range=True))
+    for q in circuit.jfets:  # u from 0 to 1 about 0.5: the nominal value +- 100 %
+        out.append(Source(f"IDSS/VP {q.ref}", 1.0))
     if spec.supply.tolerance > 0:
         out.append(Source("supply", spec.supply.tolerance))
     return out
@@ -75,8 +78,9 @@ def spreads(design: Design, spec: Spec) -> tuple[FigureSpread, ...]:
     env = Environment.for_design(design, spec)
     srcs = sources(design, spec)
     r0, c0 = batch_values(design, circuit)
-    nr, nc, nq = r0.shape[1], c0.shape[1], len(circuit.bjts)
-    hfe0 = np.array([q.device.hfe_nominal for q in circuit.bjts])
+    nr, nc, nq = r0.shape[1], c0.shape[1], circuit.nq
+    hfe0 = np.array([q.device.hfe_nominal for q in circuit.bjts]
+                    + [NOMINAL_U] * len(circuit.jfets))
     # member 0 nominal, then +/- for every source
     k = 1 + 2 * len(srcs)
     r = np.repeat(r0, k, axis=0)

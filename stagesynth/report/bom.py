@@ -276,6 +276,11 @@ def bom_rows(design: Design, analysis: Analysis, spec: Spec | None = None) -> li
     """One row per part (keys: COLUMNS), values as display text in engineering units."""
     rows = []
     for part in design.parts:
+        if part.is_jfet:
+            from stagesynth.report.jfet_rows import jfet_row
+
+            rows.append(jfet_row(design, analysis, part))
+            continue
         if part.is_bjt:
             dev = design.devices[part.device]
             base = {
