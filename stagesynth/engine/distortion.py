@@ -69,7 +69,7 @@ def distortion_figures(
     lv = np.repeat(level, m)
     fr = np.repeat(freq, m)
     run = np.flatnonzero(np.asarray(active).reshape(-1) & (lv > 0) & np.isfinite(lv))
-    if run.size and len(circuit.bjts):
+    if run.size and circuit.nq:
         if request.method == "estimate":
             from stagesynth.engine.volterra import harmonics
 

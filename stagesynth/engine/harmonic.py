@@ -159,11 +159,14 @@ class LargeSignal:
         g = np.einsum("ik,bk,jk->bij", ar, 1.0 / r_values, ar)
         c = np.einsum("ik,bk,jk->bij", acap, c_values, acap)
         nq = len(circuit.bjts)
+        self.nb = nq
         self.is_ = np.empty((b, nq))
-        self.vt = np.asarray(thermal_voltage(dc.tj), dtype=float).reshape(b, nq)
-        self.hfe = np.asarray(dc.hfe, dtype=float).reshape(b, nq)
+        self.vt = np.asarray(thermal_voltage(dc.tj[:, :nq]), dtype=float).reshape(b, nq)
+        # junction FETs after the bipolar columns: no base current (hFE infinite)
+        self.hfe = np.concatenate([np.asarray(dc.hfe[:, :nq], dtype=float).reshape(b, nq),
+                                   np.full((b, len(circuit.jfets)), np.inf)], axis=1)
         self.va = np.array([q.device.early_voltage for q in circuit.bjts])
-        self.sign = np.array([q.device.sign for q in circuit.bjts], dtype=float)
+        self.sign = np.array([q.device.sign for q in circuit.transistors], dtype=float)
         for k, q in enumerate(circuit.bjts):
             self.is_[:, k] = saturation_current(q.device, dc.tj[:, k])
             hp = hybrid_pi(q.device, dc.ic[:, k], dc.vce[:, k], dc.hfe[:, k], dc.tj[:, k])
@@ -171,6 +174,9 @@ class LargeSignal:
                 _stamp(g, q.b, q.bi, 1.0 / q.device.r_bb)
             _stamp(c, q.bi, q.e, hp.c_pi)
             _stamp(c, q.bi, q.c, hp.c_mu)
+        from stagesynth.engine import jfet_hb
+
+        self.__dict__.update(jfet_hb.setup(circuit, dc, c))
         out, inp = circuit.output, circuit.input
         g[:, out, out] += 1.0 / bc(load_resistance)
         c[:, out, out] += bc(load_capacitance)
@@ -182,7 +188,7 @@ class LargeSignal:
         self.C = c[:, :n, :n]
         self.vcc = dc.v[:, circuit.supply].copy()
         self.j_supply = -g[:, :n, circuit.supply] * self.vcc[:, None]  # (B, n) at DC
-        ports = sorted({t for q in circuit.bjts for t in (q.c, q.bi, q.e) if t < n})
+        ports = sorted({t for q in circuit.transistors for t in (q.c, q.bi, q.e) if t < n})
         self.ports = np.array(ports, dtype=int)
         self.rest = np.array([i for i in range(n) if i not in ports], dtype=int)
         self.P = len(ports)
@@ -190,15 +196,16 @@ class LargeSignal:
         # terminal -> port index, or -1 ground / -2 supply (fixed waveforms)
         def where(node: int) -> int:
             return pos.get(node, -1 if node == circuit.ground else -2)
-        self.term = np.array([[where(q.c), where(q.bi), where(q.e)] for q in circuit.bjts],
-                             dtype=int).reshape(nq, 3)
+        self.term = np.array([[where(q.c), where(q.bi), where(q.e)]
+                              for q in circuit.transistors], dtype=int).reshape(-1, 3)
         self.dc_ports = dc.v[:, self.ports].copy()
 
     def subset(self, idx: np.ndarray) -> LargeSignal:
         """Members `idx` as a smaller batch (shares the circuit)."""
         new = object.__new__(LargeSignal)
         new.__dict__.update(self.__dict__)
-        for name in ("is_", "vt", "hfe", "gs", "G", "C", "vcc", "j_supply", "dc_ports"):
+        for name in ("is_", "vt", "hfe", "gs", "G", "C", "vcc", "j_supply", "dc_ports",
+                     "j_idss", "j_vp", "j_leak"):
             setattr(new, name, getattr(self, name)[idx])
         new.B = len(idx)
         return new
@@ -250,14 +257,22 @@ class LargeSignal:
         s = self.sign[None, :, None]
         vbe = s * (vb - ve)
         vce = s * (vc - ve)
+        nb = self.nb
         vt = self.vt[:, :, None]
-        ex, dex = _limexp(vbe / vt)
-        early = 1.0 + vce / self.va[None, :, None]
+        ex, dex = _limexp(vbe[:, :nb] / vt)
+        early = 1.0 + vce[:, :nb] / self.va[None, :, None]
         i0 = self.is_[:, :, None]
         ic = i0 * ex * early
         gm = i0 * dex / vt * early
         go = i0 * ex / self.va[None, :, None]
-        return ic, ic / self.hfe[:, :, None], vbe, vce, gm, go
+        ib = ic / self.hfe[:, :nb, None]
+        if self.term.shape[0] > nb:  # junction FETs: the drain law, gate leakage
+            from stagesynth.engine.jfet_hb import currents
+
+            i_d, ig, gm_j, gds_j = currents(self, vbe[:, nb:], vce[:, nb:])
+            ic, ib = np.concatenate([ic, i_d], 1), np.concatenate([ib, ig], 1)
+            gm, go = np.concatenate([gm, gm_j], 1), np.concatenate([go, gds_j], 1)
+        return ic, ib, vbe, vce, gm, go
 
     # -- Newton ---------------------------------------------------------------------
     def _system(self, red, h):

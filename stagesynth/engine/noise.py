@@ -114,6 +114,20 @@ def build_sources(
             b.append(q.bi)
             white.append(4.0 * BOLTZMANN * tj / q.device.r_bb)
             corner.append(zero)
+    if circuit.jfets:  # contract "Junction FET": channel thermal and gate shot noise
+        from stagesynth.engine.jfet_ac import small_signal
+
+        gm, _ = small_signal(circuit, dc)
+        nb = len(circuit.bjts)
+        for k, q in enumerate(circuit.jfets):
+            tj = dc.tj[:, nb + k] + ZERO_CELSIUS
+            labels += [f"{q.ref} channel", f"{q.ref} gate shot"]
+            owners += [q.ref, q.ref]
+            a += [q.d, q.g]
+            b += [q.s, q.s]
+            white += [4.0 * BOLTZMANN * tj * (2.0 / 3.0) * np.maximum(gm[:, k], 0.0),
+                      two_q * np.abs(dc.ib[:, nb + k])]  # i_gss(Tj), the gate leakage
+            corner += [np.full(B, q.device.flicker_corner), zero]
     rs = np.broadcast_to(np.asarray(source_resistance, dtype=float), (B,))
     labels.append(SOURCE_LABEL)
     owners.append("source")

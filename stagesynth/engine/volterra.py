@@ -56,16 +56,19 @@ def series(system: AcSystem, dc: DcBatch, freq: np.ndarray | float,
     basis = np.exp(1j * np.outer(np.arange(kmax), wt))  # (K, N)
     bjts = circ.bjts
     nq = len(bjts)
-    vt = np.asarray(thermal_voltage(dc.tj), dtype=float).reshape(b, nq)[:, :, None]
+    vt = np.asarray(thermal_voltage(dc.tj[:, :nq]), dtype=float).reshape(b, nq)[:, :, None]
     va = np.array([q.device.early_voltage for q in bjts])[None, :, None]
-    ic = dc.ic[:, :, None]
-    i0 = ic / (1.0 + dc.vce[:, :, None] / va)
+    ic = dc.ic[:, :nq, None]
+    i0 = ic / (1.0 + dc.vce[:, :nq, None] / va)
     sign = np.array([q.device.sign for q in bjts], dtype=float)[None, :, None]
-    hfe = dc.hfe
+    hfe = dc.hfe[:, :nq]
+    from stagesynth.engine.jfet_volterra import JfetSeries
+
+    fets = JfetSeries(circ, dc)  # junction FETs: their square law terminates the series
     ext = lambda v: np.concatenate([v, np.zeros((b, 2, v.shape[-1]))], axis=1)  # noqa: E731
-    cidx = np.array([q.c for q in bjts])
-    bidx = np.array([q.bi for q in bjts])
-    eidx = np.array([q.e for q in bjts])
+    cidx = np.array([q.c for q in bjts], dtype=int)
+    bidx = np.array([q.bi for q in bjts], dtype=int)
+    eidx = np.array([q.e for q in bjts], dtype=int)
 
     v = np.zeros((order + 1, b, nn, kmax), dtype=complex)  # v[n]: E^n part, harmonics
     v[1, :, :, 1] = system.node_voltages(f[:, None])[:, 0, :]
@@ -87,10 +90,12 @@ def series(system: AcSystem, dc: DcBatch, freq: np.ndarray | float,
                 contrib = -(sign * share[:, :, None] * spec)  # (B, nQ, K)
                 for q in range(nq):
                     rhs[:, :, nodes[q]] += contrib[:, q, :]
+            fets.inject(n, basis, ns, rhs)
             sol = np.linalg.solve(y, rhs[:, :, :nn, None])[..., 0]  # (B, K, n)
             v[n] = np.transpose(sol, (0, 2, 1))
             es.append(None)  # placeholder, completed below with x_n
         w = np.real(ext(v[n]) @ basis)  # (B, n+2, N) time samples of order n
+        fets.record(w)
         x_n = sign * (w[:, bidx] - w[:, eidx]) / vt
         xs.append(x_n)
         cs.append(sign * (w[:, cidx] - w[:, eidx]))
