@@ -89,7 +89,8 @@ def write_bundle(
     rob = assess_robustness(design, analysis, spec)
     names = list(BUNDLE_FILES)
     if rob.yield_estimate is not None and spec is not None:
-        from stagesynth.report.plots import figure_svg, histogram_figure
+        from stagesynth.report.histograms import histogram_figure
+        from stagesynth.report.plots import figure_svg
 
         contents["histograms.svg"] = figure_svg(histogram_figure(rob.yield_estimate, spec))
         svgs["histograms"] = contents["histograms.svg"].decode("utf-8")

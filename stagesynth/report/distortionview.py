@@ -13,7 +13,7 @@ import numpy as np
 from stagesynth.judging.textout import fmt
 from stagesynth.report.document import Figure as DocFigure
 from stagesynth.report.document import Section, Table
-from stagesynth.report.plots import BLUE, GRID_MINOR, INK, ORANGE, _new_figure
+from stagesynth.report.plotstyle import BLUE, GRID_MINOR, INK, ORANGE, _new_figure
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from matplotlib.figure import Figure

@@ -8,7 +8,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from stagesynth.report.plots import (
+from stagesynth.report.plots import plot_range, sweep
+from stagesynth.report.plotstyle import (
     _STYLE,
     BLUE,
     MASK,
@@ -19,8 +20,6 @@ from stagesynth.report.plots import (
     _label_box,
     _new_figure,
     eng_label,
-    plot_range,
-    sweep,
 )
 
 if TYPE_CHECKING:  # pragma: no cover - typing only

@@ -1,19 +1,39 @@
-"""Bode and impedance figures of an analysed stage, drawn from the engine's own sweeps.
+"""Bode, impedance and supply-ripple figures of an analysed stage, from the engine's sweeps.
 
 Every curve is an `AcSystem` sweep of the nominal stage; every limit line comes from
 the spec. matplotlib is imported inside the functions (it is heavy) and figures are
-drawn on the Agg canvas without touching pyplot's global state.
+drawn on the Agg canvas without touching pyplot's global state. The shared look and the
+SVG/PNG writing are in `plotstyle`, the Monte Carlo histograms in `histograms`.
 """
 
 from __future__ import annotations
 
-import io
 import math
 from typing import TYPE_CHECKING
 
 import numpy as np
 
-from stagesynth.quantities.units import format_quantity
+from stagesynth.report.histograms import histogram_bins, histogram_figure
+from stagesynth.report.plotstyle import (
+    _STYLE,
+    BAND,
+    BLUE,
+    GRID_MAJOR,
+    GRID_MINOR,
+    INK,
+    MASK,
+    ORANGE,
+    _band_lines,
+    _eng_log_axis,
+    _forbidden,
+    _grid,
+    _label_box,
+    _new_figure,
+    _num,
+    eng_label,
+    figure_png,
+    figure_svg,
+)
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from matplotlib.figure import Figure
@@ -21,35 +41,38 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
     from stagesynth.contracts.spec import Spec
     from stagesynth.engine.analysis import Analysis
 
-# Our own neutral, colour-blind-safe palette (a blue/orange pair stays distinct under
-# the common colour-vision deficiencies and in greyscale, helped by line styles).
-INK = "#1f1f1f"
-BLUE = "#1d4e89"
-ORANGE = "#c0640f"
-MASK = "#9a9a9a"
-BAND = "#5a5a5a"
-GRID_MAJOR = "#c8c8c8"
-GRID_MINOR = "#e6e6e6"
-
-_STYLE = {
-    "font.family": "DejaVu Sans",
-    "font.size": 10.0,
-    "axes.titlesize": 11.5,
-    "axes.labelsize": 10.5,
-    "axes.edgecolor": "#444444",
-    "axes.linewidth": 0.8,
-    "axes.labelcolor": INK,
-    "xtick.color": "#333333",
-    "ytick.color": "#333333",
-    "xtick.labelsize": 9.5,
-    "ytick.labelsize": 9.5,
-    "legend.fontsize": 9.0,
-    "legend.framealpha": 0.92,
-    "legend.edgecolor": "#bbbbbb",
-    "hatch.linewidth": 0.6,
-    "svg.hashsalt": "stagesynth",  # stable element ids: the same design gives the same file
-    "svg.fonttype": "none",  # text as text: several times faster to write, searchable
-}
+# the shared look and the histograms stay importable from here
+__all__ = [
+    "BAND",
+    "BLUE",
+    "GRID_MAJOR",
+    "GRID_MINOR",
+    "INK",
+    "MASK",
+    "ORANGE",
+    "_STYLE",
+    "_band_lines",
+    "_eng_log_axis",
+    "_forbidden",
+    "_grid",
+    "_label_box",
+    "_new_figure",
+    "_num",
+    "bode_data",
+    "bode_figure",
+    "eng_label",
+    "figure_png",
+    "figure_svg",
+    "histogram_bins",
+    "histogram_figure",
+    "impedance_data",
+    "impedance_figure",
+    "impedance_limits",
+    "plot_range",
+    "ripple_data",
+    "ripple_figure",
+    "sweep",
+]
 
 _POINTS_PER_DECADE = 80
 
@@ -85,77 +108,6 @@ def sweep(lo: float, hi: float, per_decade: int = _POINTS_PER_DECADE) -> np.ndar
     """Log-spaced frequencies from lo to hi, `per_decade` points per decade."""
     decades = math.log10(hi / lo)
     return np.logspace(math.log10(lo), math.log10(hi), max(int(decades * per_decade), 2) + 1)
-
-
-# ---------------------------------------------------------------------------
-# Axis helpers
-# ---------------------------------------------------------------------------
-def eng_label(value: float, unit: str) -> str:
-    """Engineering text for a tick or label: 1000 -> "1 kHz", 8.3 -> "8.3 Hz"."""
-    return format_quantity(value, unit, digits=3)
-
-
-def _num(value: float, spec: str) -> str:
-    """A number with a typographic minus sign, matching matplotlib's tick labels."""
-    return format(value, spec).replace("-", "\u2212")
-
-
-def _eng_log_axis(axis, unit: str, span_decades: float) -> None:
-    """Decade ticks labelled with SI prefixes; on a short axis the 2 and 5 minors too."""
-    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
-
-    def label(v: float, _pos: int | None = None) -> str:
-        return eng_label(v, unit) if v > 0 else ""
-
-    def minor_label(v: float, _pos: int | None = None) -> str:
-        mantissa = v / 10.0 ** math.floor(math.log10(v) + 1e-9)
-        return label(v) if round(mantissa, 6) in (2.0, 5.0) else ""
-
-    axis.set_major_locator(LogLocator(base=10.0, numticks=15))
-    axis.set_minor_locator(LogLocator(base=10.0, subs=np.arange(2, 10), numticks=15))
-    axis.set_major_formatter(FuncFormatter(label))
-    axis.set_minor_formatter(FuncFormatter(minor_label) if span_decades < 2.5 else NullFormatter())
-
-
-def _grid(ax) -> None:
-    ax.grid(True, which="major", color=GRID_MAJOR, linewidth=0.8)
-    ax.grid(True, which="minor", color=GRID_MINOR, linewidth=0.5)
-    ax.set_axisbelow(True)
-
-
-def _new_figure(width: float, height: float) -> Figure:
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(width, height), facecolor="white")
-    FigureCanvasAgg(fig)  # the Agg canvas, without pyplot's global state
-    return fig
-
-
-def _band_lines(ax, band: tuple[float, float] | None, label: bool) -> None:
-    if band is None:
-        return
-    for k, f in enumerate(band):
-        ax.axvline(f, color=BAND, linestyle=(0, (2, 2)), linewidth=1.0, zorder=1,
-                   label="required band edge" if label and k == 0 else None)
-
-
-def _forbidden(ax, f0: float, f1: float, y0: float, y1: float, label: str | None,
-               colour: str = MASK, edge: float | None = None) -> None:
-    """A shaded rectangle the response must stay out of, its limit drawn as a solid edge.
-
-    Flat fills and lines only (no hatching): SVG hatch patterns do not survive every
-    browser's inline rendering, and the HTML report must look like the PNG.
-    """
-    ax.fill_between([f0, f1], [y0, y0], [y1, y1], facecolor=colour, alpha=0.22,
-                    edgecolor="none", linewidth=0.0, zorder=1, label=label)
-    if edge is not None:
-        ax.plot([f0, f1], [edge, edge], color=colour, linewidth=1.3, zorder=2)
-
-
-def _label_box() -> dict:
-    return {"boxstyle": "round,pad=0.25", "facecolor": "white", "edgecolor": "#bbbbbb",
-            "alpha": 0.95, "linewidth": 0.6}
 
 
 # ---------------------------------------------------------------------------
@@ -339,155 +291,6 @@ def impedance_figure(analysis: Analysis, spec: Spec | None = None) -> Figure:
         axes[0].set_title(f"Terminal impedances (values at midband "
                           f"{eng_label(analysis.midband, 'Hz')})", loc="left")
         fig.subplots_adjust(left=0.1, right=0.66, top=0.94, bottom=0.09)
-    return fig
-
-
-# ---------------------------------------------------------------------------
-# Saving
-# ---------------------------------------------------------------------------
-def figure_svg(fig: Figure) -> bytes:
-    """The figure as a standalone SVG document (no timestamp, stable ids)."""
-    import matplotlib
-
-    buf = io.BytesIO()
-    with matplotlib.rc_context(_STYLE):
-        fig.savefig(buf, format="svg", metadata={"Date": None})
-    return buf.getvalue()
-
-
-def figure_png(fig: Figure, dpi: int = 150) -> bytes:
-    """The figure as a PNG raster at `dpi`."""
-    import matplotlib
-
-    buf = io.BytesIO()
-    with matplotlib.rc_context(_STYLE):
-        fig.savefig(buf, format="png", dpi=dpi)
-    return buf.getvalue()
-
-
-_HIST_PANELS = (
-    ("gain_db", "gain", "dB"),
-    ("f_low", "f_low", "Hz"),
-    ("f_high", "f_high", "Hz"),
-    ("swing_vpp", "swing", "Vpp"),
-)
-_HIST_BINS = (12, 40)  # fewest and most bins a panel gets
-
-
-def histogram_bins(vals: np.ndarray) -> np.ndarray:
-    """Bin edges over the data's own span (Freedman–Diaconis width, numpy's "fd"), kept
-    between 12 and 40 bins, so a narrow spread shows its shape wherever the limits lie."""
-    lo, hi = float(vals.min()), float(vals.max())
-    if not hi > lo:
-        width = abs(lo) * 1e-3 or 1e-3
-        return np.linspace(lo - 6 * width, hi + 6 * width, _HIST_BINS[0] + 1)
-    n = len(np.histogram_bin_edges(vals, bins="fd")) - 1
-    n = int(min(max(n, _HIST_BINS[0]), _HIST_BINS[1]))
-    pad = (hi - lo) / n / 2
-    return np.linspace(lo - pad, hi + pad, n + 1)
-
-
-def _tick_formatter(unit: str):
-    """Tick labels in engineering notation with as many digits as the tick spacing needs
-    (neighbouring ticks never print the same text)."""
-    from matplotlib.ticker import Formatter
-
-    class _Eng(Formatter):
-        def _text(self, v: float, digits: int) -> str:
-            if unit == "dB":
-                return _num(v, f".{max(0, digits - 2)}f")
-            text = format_quantity(v, "V" if unit == "Vpp" else unit, digits=digits)
-            return text + ("pp" if unit == "Vpp" else "")
-
-        def format_ticks(self, values):
-            locs = np.asarray(values, dtype=float)
-            step = float(np.min(np.abs(np.diff(locs)))) if locs.size > 1 else 0.0
-            big = float(np.max(np.abs(locs))) if locs.size else 1.0
-            digits = (int(min(max(math.ceil(math.log10(big / step)) + 1, 2), 7))
-                      if step > 0 and big > 0 else 3)
-            return [self._text(v, digits) for v in locs]
-
-        def __call__(self, v, pos=None):
-            return self._text(v, 4)
-
-    return _Eng()
-
-
-def histogram_figure(estimate, spec: Spec) -> Figure:
-    """Monte Carlo spread of gain, f_low, f_high and swing, with the spec's limits drawn.
-
-    Each unit contributes its value at the worse of the two ambient extremes, so a unit
-    is inside every limit drawn here exactly when it passes those requirements. Bins
-    follow the data; a limit far from the spread is named at the panel's edge with an
-    arrow instead of squeezing the histogram into one bar. No legend sits on the data:
-    the limits are named in each panel's title and once below the figure.
-    """
-    import matplotlib
-    from matplotlib.lines import Line2D
-    from matplotlib.patches import Patch
-    from matplotlib.ticker import MaxNLocator
-
-    r = spec.require
-    limits = {
-        "gain_db": (r.gain_db - r.gain_tolerance_db, r.gain_db + r.gain_tolerance_db),
-        "f_low": (None, r.f_low),
-        "f_high": (r.f_high, None),
-        "swing_vpp": (r.swing_vpp if r.swing_vpp > 0 else None, None),
-    }
-    with matplotlib.rc_context(_STYLE):
-        fig = _new_figure(8.6, 6.4)
-        axes = fig.subplots(2, 2)
-        for ax, (key, title, unit) in zip(axes.ravel(), _HIST_PANELS, strict=True):
-            vals = np.asarray(estimate.metrics[key], dtype=float)
-            vals = vals[np.isfinite(vals)]
-            lo, hi = limits[key]
-            named = []
-            if vals.size:
-                bins = histogram_bins(vals)
-                ax.hist(vals, bins=bins, color=BLUE, alpha=0.85, edgecolor="white",
-                        linewidth=0.4, zorder=2)
-                left, right = float(bins[0]), float(bins[-1])
-                span = right - left
-                # show a limit in place when it lies within a span of the data
-                for x in (lo, hi):
-                    if x is not None and left - span <= x <= right + span:
-                        left, right = min(left, x - 0.04 * span), max(right, x + 0.04 * span)
-                ax.set_xlim(left, right)
-                for x, side in ((lo, "min"), (hi, "max")):
-                    if x is None:
-                        continue
-                    named.append(f"{side} {eng_label(x, 'V' if unit == 'Vpp' else unit)}"
-                                 + ("pp" if unit == "Vpp" else ""))
-                    if left <= x <= right:
-                        ax.axvline(x, color=ORANGE, linewidth=1.8, zorder=3)
-                    else:
-                        at_right = x > right
-                        ax.annotate(f"{side} limit {'→' if at_right else '←'}",
-                                    xy=(1.0 if at_right else 0.0, 0.93),
-                                    xycoords="axes fraction", ha="right" if at_right
-                                    else "left", va="top", fontsize=8, color=ORANGE)
-            limits_text = (", limits " + ", ".join(named)) if named else ""
-            ax.set_title(f"{title} at the worse ambient{limits_text}", fontsize=9.5,
-                         color=INK, loc="left")
-            ax.set_ylabel("units (count)", fontsize=9)
-            ax.set_xlabel(f"{title}  ({unit})", fontsize=9)
-            ax.xaxis.set_major_locator(MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10]))
-            ax.yaxis.set_major_locator(MaxNLocator(nbins=5, integer=True))
-            ax.xaxis.set_major_formatter(_tick_formatter(unit))
-            ax.tick_params(labelsize=8)
-            ax.grid(True, color=GRID_MINOR, linewidth=0.5)
-            ax.set_axisbelow(True)
-            ax.set_ylim(0, ax.get_ylim()[1] * 1.12)  # headroom for the edge notes
-        fig.legend([Patch(facecolor=BLUE, alpha=0.85), Line2D([], [], color=ORANGE,
-                                                              linewidth=1.8)],
-                   ["simulated units", "spec limit (an arrow: beyond the panel's edge)"],
-                   loc="lower center", ncols=2, frameon=False, fontsize=8.5)
-        fig.suptitle(
-            f"Monte Carlo: {estimate.units} units, {100 * estimate.estimate:.2f} % meet every "
-            f"requirement (seed {estimate.seed})", fontsize=10.5, x=0.02, ha="left",
-            color=INK)
-        fig.subplots_adjust(left=0.08, right=0.98, top=0.89, bottom=0.15, hspace=0.62,
-                            wspace=0.22)
     return fig
 
 

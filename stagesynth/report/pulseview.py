@@ -15,7 +15,7 @@ from stagesynth.judging.textout import fmt
 from stagesynth.quantities.units import format_number, format_quantity
 from stagesynth.report.document import Figure as DocFigure
 from stagesynth.report.document import Section, Table
-from stagesynth.report.plots import BLUE, GRID_MINOR, INK, ORANGE, _new_figure, eng_label
+from stagesynth.report.plotstyle import BLUE, GRID_MINOR, INK, ORANGE, _new_figure, eng_label
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
     from matplotlib.figure import Figure
