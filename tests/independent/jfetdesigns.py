@@ -97,6 +97,16 @@ DESIGNS: dict[str, dict[str, Any]] = {
         _r("RS1", 330.0, "s2", "s1"), _r("RD", 2.7e3, "d1", "0"),
         _c("C2", 2.2e-6, "d1", "out"), _j("J1", "d1", "g1", "s1"),
     ], {"J": GENERAL_PJFET}),
+    # geophone buffer with a divider-biased gate (the spread needs more than self-bias): the
+    # high-IDSS unit runs into the triode region at the low supply, a corner out of the active
+    # region on purpose
+    "cs_divider": _design("Geophone preamp, divider bias", 12.0, {"resistance": 10e3}, 47e3,
+                          0.0, [
+        _c("C1", 10e-9, "in", "g1"), _r("R1", 220e6, "vdd", "g1"), _r("R2", 47e6, "g1", "0"),
+        _r("RD", 5.6e3, "vdd", "d1"), _r("RS1", 330.0, "s1", "s2"),
+        _r("RS2", 3e3, "s2", "0"), _c("CS", 47e-6, "s2", "0"),
+        _c("C2", 1e-6, "d1", "out"), _j("J1", "d1", "g1", "s1"),
+    ], {"J": GENERAL_NJFET}),
 }
 
 
@@ -127,6 +137,9 @@ SPECS: dict[str, dict[str, Any]] = {
     "cs_pjfet": _spec("cs_pjfet", "Contact-microphone preamp", 0.05, {
         "gain_db": 9.0, "gain_tolerance_db": 6.0, "f_low": 20.0, "f_high": 2e4,
         "z_in": 1e6, "swing": 2.0, "ambient": [0.0, 60.0], "noise": 20e-9, "noise_at": 1e3}),
+    "cs_divider": _spec("cs_divider", "Geophone preamp", 0.05, {
+        "gain_db": 20.0, "gain_tolerance_db": 6.0, "f_low": 20.0, "f_high": 2e4,
+        "z_in": 1e6, "swing": 2.0, "ambient": HOT, "noise": 20e-9, "noise_at": 1e3}),
 }
 
 
