@@ -244,3 +244,31 @@ def test_square_law_second_harmonic_is_v_over_4_vov() -> None:
     res = rt.distortion(cir, op, 2.0, 1e3)
     assert res.hd2 == pytest.approx(res.emf / (4 * abs(VP)), rel=1e-3)
     assert res.hd3 < 1e-9
+
+
+def test_p_channel_is_the_mirror_image() -> None:
+    # Contract §2 "N-channel, P the mirror image": a P-channel stage built as the N-channel
+    # one with supply and ground exchanged has every node at 12 V minus the N-channel node,
+    # the same drain current, gain, input noise (gate leakage mirrored too).
+    dev = {"early_voltage": 60.0, "c_gs": 8e-12, "c_gd": 3e-12, "i_gss": 1e-9,
+           "theta_ja": 300.0, "flicker_corner": 100.0}
+    n_dev = jd.GENERAL_NJFET | dev
+    p_dev = jd.GENERAL_PJFET | dev
+
+    def stage(dev: dict[str, Any], hi: str, lo: str) -> dict[str, Any]:
+        return jd._design("mirror", 12.0, {"resistance": 1e3}, 47e3, 0.0, [
+            jd._c("C1", 47e-9, "in", "g1"), jd._r("RG", 22e6, "g1", lo),
+            jd._r("RS2", 680.0, lo, "s2"), jd._c("CS", 100e-6, lo, "s2"),
+            jd._r("RS1", 330.0, "s2", "s1"), jd._r("RD", 2.7e3, "d1", hi),
+            jd._c("C2", 2.2e-6, "d1", "out"), jd._j("J1", "d1", "g1", "s1")], {"J": dev})
+
+    req = {"f_low": 20.0, "f_high": 2e4, "ambient": [0.0, 60.0], "noise_at": 1e3}
+    an_n = ra.analyze(stage(n_dev, "vdd", "0"), {"require": req})
+    an_p = ra.analyze(stage(p_dev, "0", "vdd"), {"require": req})
+    for fn, fp in zip((an_n.nominal, *an_n.corners), (an_p.nominal, *an_p.corners),
+                      strict=True):
+        for node in ("g1", "s1", "s2", "d1"):
+            assert fp.op.voltages[node] == pytest.approx(12.0 - fn.op.voltages[node], abs=1e-9)
+        assert fp.op.jfets["J1"].id == pytest.approx(fn.op.jfets["J1"].id, rel=1e-9)
+        assert fp.gain_db == pytest.approx(fn.gain_db, abs=1e-9)
+        assert fp.noise == pytest.approx(fn.noise, rel=1e-9)
