@@ -272,3 +272,29 @@ def test_p_channel_is_the_mirror_image() -> None:
         assert fp.op.jfets["J1"].id == pytest.approx(fn.op.jfets["J1"].id, rel=1e-9)
         assert fp.gain_db == pytest.approx(fn.gain_db, abs=1e-9)
         assert fp.noise == pytest.approx(fn.noise, rel=1e-9)
+
+
+def test_second_harmonic_by_the_method_of_nonlinear_currents() -> None:
+    # Wambacq & Sansen, Distortion Analysis of Analog Integrated Circuits (method of
+    # nonlinear currents, from memory): at a small level the second harmonic is the linear
+    # network's response at 2f to the drain current's second-order term,
+    # I2 = K(1 + VDS/VA) Vgs^2/2 + K VOV Vgs Vds/VA with K = IDSS/VP^2 and Vgs, Vds the
+    # fundamental phasors; c_gs and c_gd stay in that network. Against the collocation of
+    # refjfetthd on the piezo preamp (1 nF source, 10 MOhm gate return).
+    from independent import refjfetthd as rt
+
+    d = jd.DESIGNS["cs_piezo"]
+    cir = rj.circuit_from_design(d)
+    op = rj.solve_dc(cir, rj.nominal_conditions(cir))
+    net, t, j = ra.Network(cir, op), op.jfets["J1"], cir.jfets[0]
+    f, vout = 1e3, 0.1
+    s1 = net.emf([f])[0]
+    scale = vout / abs(s1[net.idx[cir.output]])
+    vgs = (s1[net.idx[j.g]] - s1[net.idx[j.s]]) * scale
+    vds = (s1[net.idx[j.d]] - s1[net.idx[j.s]]) * scale
+    k, va = t.idss / t.vp**2, cir.jdevices["J"].early_voltage
+    i2 = k * (1 + t.vds / va) * vgs**2 / 2 + k * (t.vgs - t.vp) * vgs * vds / va
+    s2 = net.solve([2 * f], load=True, source=True, fixed={cir.supply_node: 0.0},
+                   inject={j.d: -i2, j.s: i2})
+    hd2 = abs(s2[0, net.idx[cir.output]]) / vout
+    assert rt.distortion(cir, op, 2 * vout, f).hd2 == pytest.approx(hd2, rel=1e-3)
