@@ -18,7 +18,40 @@ from stagesynth.contracts.device import hfe_at, saturation_current, thermal_volt
 from stagesynth.engine import jfet_dc
 from stagesynth.engine.circuit import Circuit
 
-GMIN = 1e-12  # S from every node to ground, so DC-floating nodes stay defined
+GMIN = 1e-12  # S to ground from a node no DC path defines (between capacitors, a lone gate)
+GMIN_PATH = 1e-15  # S from every other node: keeps Newton's matrix regular at cutoff while
+# leaving gigaohm gate returns (1 GOhm against 1 POhm: 1e-6) as the contract draws them
+
+
+def node_gmin(circuit: Circuit, source_dc: bool = True) -> np.ndarray:
+    """(n,) conductance to ground per unknown node: GMIN where no resistor, load, source
+    or transistor (bipolar terminals; a FET's drain-source channel, not its gate) joins it
+    to ground or the supply, else GMIN_PATH."""
+    parent = list(range(circuit.n + 2))
+
+    def find(x: int) -> int:
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    def join(a: int, b: int) -> None:
+        parent[find(a)] = find(b)
+
+    join(circuit.ground, circuit.supply)
+    join(circuit.output, circuit.ground)  # the load
+    if source_dc:  # the source resistance (a series source capacitor blocks it)
+        join(circuit.input, circuit.ground)
+    for _, a, b in circuit.resistors:
+        join(a, b)
+    for q in circuit.bjts:
+        join(q.c, q.e)
+        join(q.bi, q.e)
+        join(q.b, q.bi)
+    for q in circuit.jfets:
+        join(q.d, q.s)
+    root = find(circuit.ground)
+    return np.array([GMIN_PATH if find(i) == root else GMIN for i in range(circuit.n)])
 VNTOL = 1e-7  # V, absolute node-voltage tolerance of the last Newton step
 RELTOL = 1e-7  # relative node-voltage tolerance of the last Newton step
 ABSTOL = 1e-13  # A, KCL residual floor
@@ -99,7 +132,7 @@ class _Model:
         g = np.stack(cond, axis=1)  # (B, k)
         self.G = np.einsum("ik,bk,jk->bij", a, g, a)
         idx = np.arange(n)
-        self.G[:, idx, idx] += GMIN
+        self.G[:, idx, idx] += node_gmin(circuit, not blocked)
         free = np.ones(n + 2, dtype=bool)
         free[[circuit.ground, circuit.supply]] = False
         if self.input_fixed:
