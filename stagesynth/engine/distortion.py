@@ -79,8 +79,10 @@ def distortion_figures(
         else:
             from stagesynth.engine.harmonic import LargeSignal, solve_periodic
 
+            cs = None if system.source_capacitance is None else system.source_capacitance[run]
             model = LargeSignal(circuit, _dc_subset(dc, run), r_rep[run], c_rep[run],
-                                source_resistance, load_resistance, load_capacitance)
+                                source_resistance, load_resistance, load_capacitance,
+                                0.0 if cs is None else cs)
             # 64 harmonics resolve every level up to the swing limit; a member driven into
             # hard clipping beyond it that needs more is reported as not converged
             sol = solve_periodic(model, fr[run], level=lv[run] / 2.0, h_max=64)

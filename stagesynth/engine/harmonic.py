@@ -21,7 +21,7 @@ import numpy as np
 
 from stagesynth.contracts.device import hybrid_pi, saturation_current, thermal_voltage
 from stagesynth.engine.circuit import Circuit
-from stagesynth.engine.dc import GMIN, DcBatch
+from stagesynth.engine.dc import DcBatch, node_gmin
 
 RS_MIN = 1e-3  # ohm: an ideal source (Rs = 0) is taken as this, 1e-6 of any real input
 H_START = 16  # first harmonic count; doubled until the spectrum's tail is negligible
@@ -146,6 +146,7 @@ class LargeSignal:
         source_resistance: np.ndarray | float,
         load_resistance: np.ndarray | float,
         load_capacitance: np.ndarray | float,
+        source_capacitance: np.ndarray | float = 0.0,
     ) -> None:
         b = dc.v.shape[0]
         n = circuit.n
@@ -181,9 +182,12 @@ class LargeSignal:
         g[:, out, out] += 1.0 / bc(load_resistance)
         c[:, out, out] += bc(load_capacitance)
         self.gs = 1.0 / np.maximum(bc(source_resistance), RS_MIN)
-        g[:, inp, inp] += self.gs
+        # a source capacitance in series with the EMF (contract): the source branch is
+        # then Rs + 1/(jkwCs) at harmonic k >= 1 and open at DC (added per harmonic)
+        self.cs_src = bc(source_capacitance)
+        g[:, inp, inp] += np.where(self.cs_src > 0, 0.0, self.gs)
         idx = np.arange(n)
-        g[:, idx, idx] += GMIN
+        g[:, idx, idx] += node_gmin(circuit)
         self.G = g[:, :n, :n]
         self.C = c[:, :n, :n]
         self.vcc = dc.v[:, circuit.supply].copy()
@@ -204,7 +208,8 @@ class LargeSignal:
         """Members `idx` as a smaller batch (shares the circuit)."""
         new = object.__new__(LargeSignal)
         new.__dict__.update(self.__dict__)
-        for name in ("is_", "vt", "hfe", "gs", "G", "C", "vcc", "j_supply", "dc_ports",
+        for name in ("is_", "vt", "hfe", "gs", "cs_src", "G", "C", "vcc", "j_supply",
+                     "dc_ports",
                      "j_idss", "j_vp", "j_leak"):
             setattr(new, name, getattr(self, name)[idx])
         new.B = len(idx)
@@ -218,7 +223,15 @@ class LargeSignal:
         y = self.G[:, None] + 1j * kw[:, :, None, None] * self.C[:, None]  # (B, H+1, n, n)
         p, r = self.ports, self.rest
         j_emf = np.zeros((self.B, self.G.shape[1]), dtype=complex)
-        j_emf[:, self.circuit.input] = self.gs
+        inp = self.circuit.input
+        j_emf[:, inp] = self.gs
+        if np.any(self.cs_src > 0):
+            cs = self.cs_src[:, None]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                ys = np.where((cs > 0) & (kw > 0), 1.0 / (1.0 / self.gs[:, None] + 1.0 / (
+                    1j * np.where(kw > 0, kw, 1.0) * np.where(cs > 0, cs, 1.0))), 0.0)
+            y[:, :, inp, inp] += np.where(cs > 0, ys, 0.0)
+            j_emf[:, inp] = np.where(self.cs_src > 0, ys[:, 1], self.gs)
         y_pp = y[:, :, p[:, None], p[None, :]]
         if r.size:
             y_pr = y[:, :, p[:, None], r[None, :]]
@@ -438,6 +451,8 @@ def solve_periodic(
     starts at `harmonics` and doubles (to `h_max`) until the top quarter of the load
     spectrum is below TAIL_REL of the distortion (the convergence test).
     """
+    from stagesynth.engine.hbsolve import _secant, _stepped
+
     b = model.B
     freq = np.broadcast_to(np.asarray(freq, dtype=float), (b,)).copy()
     h = harmonics
@@ -461,77 +476,3 @@ def solve_periodic(
             return Periodic(freq, e, load, x, conv & ok_tail, h, model)
         x = _resize(x, 2 * h)
         h *= 2
-
-
-def _stepped(model, red, lin, x, emf, h, todo=None):
-    """Newton at `emf` for members `todo` (default all); members that fail are
-    source-stepped from the operating point, and a member failing a step is dropped
-    (it stays not converged) rather than pursued further."""
-    b = model.B
-    todo = np.arange(b) if todo is None else np.asarray(todo, dtype=int)
-    x1 = x.copy()
-    conv = np.zeros(b, dtype=bool)
-    if todo.size == 0:
-        return x1, conv
-    sub = model if todo.size == b else model.subset(todo)
-    red_t = red if todo.size == b else {k: v[todo] for k, v in red.items()}
-    xt, ok, _ = sub.newton(red_t, lin[todo], x[todo], emf[todo], h)
-    x1[todo], conv[todo] = xt, ok
-    bad = todo[~ok]
-    if bad.size == 0:
-        return x1, conv
-    alive = bad
-    xs = model.subset(bad).start(h)
-    for frac in (0.25, 0.5, 0.75, 1.0):
-        sub = model.subset(alive)
-        red_s = {k: v[alive] for k, v in red.items()}
-        xs, ok, _ = sub.newton(red_s, lin[alive], xs, emf[alive] * frac, h, max_iter=60)
-        alive, xs = alive[ok], xs[ok]
-        if alive.size == 0:
-            break
-    x1[alive] = xs
-    conv[alive] = True
-    return x1, conv
-
-
-def _secant(model, red, lin, x, target, h):
-    """EMF amplitudes giving fundamental `target` (peak) at the load: secant on |V1|."""
-    g0, per_volt = model.linear_gain(red, h)
-    e = target / np.maximum(g0, 1e-30)
-    # first the bordered Newton (drive and waveform together) from the linear response at
-    # that drive (at zero drive the level equation has no gradient); the secant with
-    # source stepping takes over for members where that fails
-    start = x + per_volt * e[:, None, None] if np.allclose(x[..., 1:], 0.0) else x
-    xb, okb, eb = model.newton(red, lin, start, e, h, max_iter=40, target=target)
-    if np.all(okb):
-        return eb, xb, okb
-    bad = np.flatnonzero(~okb)
-    sub = model.subset(bad)
-    red_s = {k: v[bad] for k, v in red.items()}
-    e_s, x_s, ok_s = _secant_plain(sub, red_s, lin[bad], x[bad], target[bad], h, e[bad])
-    eb[bad], xb[bad], okb[bad] = e_s, x_s, ok_s
-    return eb, xb, okb
-
-
-def _secant_plain(model, red, lin, x, target, h, e):
-    """The fallback: Newton with source stepping at fixed drives, secant on the drive.
-    A member whose solve fails is left not converged (never retried)."""
-    x, conv = _stepped(model, red, lin, x, e, h)
-    a = np.abs(model.load_phasors(red, x, e)[:, 1])
-    e_prev, a_prev = np.zeros_like(e), np.zeros_like(a)
-    for _ in range(12):
-        err = a / np.maximum(target, 1e-300) - 1.0
-        todo = np.flatnonzero((np.abs(err) >= 1e-7) & conv)
-        if todo.size == 0:
-            break
-        slope = np.where(np.abs(a - a_prev) > 0, (e - e_prev) / np.where(
-            a - a_prev != 0, a - a_prev, 1.0), e / np.maximum(a, 1e-300))
-        e_new = np.clip(e + (target - a) * slope, 0.5 * e, 2.0 * e)
-        e_prev, a_prev = e.copy(), a.copy()
-        e[todo] = e_new[todo]
-        x_new, ok = _stepped(model, red, lin, x, e, h, todo)
-        x[todo] = x_new[todo]
-        conv[todo] = ok[todo]
-        a = np.abs(model.load_phasors(red, x, e)[:, 1])
-    err = a / np.maximum(target, 1e-300) - 1.0
-    return e, x, conv & (np.abs(err) < 1e-5)

@@ -62,7 +62,8 @@ def distortion_views(analysis: Analysis, thd_limit: float | None = None,
     idx = np.zeros(targets.size, dtype=int)  # every member is the nominal condition
     model = LargeSignal(circuit, _dc_subset(fig.dc, idx), np.repeat(r, idx.size, 0),
                         np.repeat(c, idx.size, 0), design.source_resistance,
-                        design.load_resistance, design.load_capacitance)
+                        design.load_resistance, design.load_capacitance,
+                        design.source_capacitance)
     # hard clipping (a follower cut off) needs many harmonics; past 64 the point is drawn
     # as not converged rather than paid for
     sol = solve_periodic(model, freq, level=targets / 2.0, h_max=64)

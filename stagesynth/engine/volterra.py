@@ -34,7 +34,11 @@ def _admittance(system: AcSystem, freqs: np.ndarray) -> np.ndarray:
     o, i = system.circuit.output, system.circuit.input
     y[:, :, o, o] += 1.0 / system.load_resistance[:, None] + 1j * w * (
         system.load_capacitance[:, None])
-    y[:, :, i, i] += 1.0 / np.maximum(system.source_resistance, RS_MIN)[:, None]
+    ys = system._source_admittance(np.where(w > 0, w, 1.0) / (2.0 * math.pi))
+    if ys is None:
+        y[:, :, i, i] += 1.0 / np.maximum(system.source_resistance, RS_MIN)[:, None]
+    else:  # Rs in series with the source capacitance: open at DC
+        y[:, :, i, i] += np.where(w > 0, ys, 0.0)
     idx = np.arange(y.shape[-1])
     y[:, :, idx, idx] += _GMIN
     return y

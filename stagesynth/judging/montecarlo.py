@@ -179,7 +179,7 @@ def _confirm_thd(fig, circuit, design: Design, spec: Spec, r: np.ndarray, c: np.
         return fig
     model = LargeSignal(circuit, _dc_subset(fig.dc, idx), r[idx], c[idx],
                         design.source_resistance, design.load_resistance,
-                        design.load_capacitance)
+                        design.load_capacitance, design.source_capacitance)
     sol = solve_periodic(model, np.repeat(fig.thd_freq, fig.thd.shape[1])[idx],
                          level=spec.require.thd_level_vpp / 2.0)
     thd, hd2, hd3 = (np.array(x, dtype=float).reshape(-1) for x in (fig.thd, fig.hd2, fig.hd3))
