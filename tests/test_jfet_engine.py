@@ -177,3 +177,19 @@ def test_second_harmonic_of_the_square_law() -> None:
     h2, h3, _, _ = harmonics(fig.system, fig.dc, 1e3, level / 2)  # the screening estimate
     assert float(h2[0]) == pytest.approx(expect, rel=1e-3)
     assert float(h3[0]) < 1e-6 * float(h2[0]) + 1e-9
+
+
+def test_bias_stability_of_the_self_biased_fet() -> None:
+    # differentiating the self-bias equation ID = IDSS (1 - ID RS/|VP|)^2 (Sedra & Smith,
+    # from memory) by hand: S_IDSS = (dID/ID)/(dIDSS/IDSS) = 1/(1 + gm RS) and
+    # dID/d|VP| = gm ID RS / (|VP| (1 + gm RS))
+    from stagesynth.judging.jfet_stability import jfet_stability
+
+    rs = 1000.0
+    (f,) = jfet_stability(common_source(rs1=100.0, rs2=900.0), ENV)
+    i_d = _self_bias_id(rs)
+    gm = 2.0 * math.sqrt(IDSS * i_d) / abs(VP)
+    assert f.id == pytest.approx(i_d, rel=1e-3)
+    assert f.s_idss == pytest.approx(1.0 / (1.0 + gm * rs), rel=1e-3)
+    assert f.s_vp == pytest.approx(gm * i_d * rs / (abs(VP) * (1.0 + gm * rs)), rel=1e-3)
+    assert f.s_t == pytest.approx(0.0, abs=1e-12)  # the textbook device has no tempcos

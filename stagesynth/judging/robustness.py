@@ -28,6 +28,7 @@ class Robustness:
     advice: tuple[str, ...]
     stability: tuple  # stability.StabilityFactors per transistor
     thermal: tuple  # stability.ThermalCheck per transistor
+    jfet: tuple = ()  # jfet_stability.JfetStability per junction FET
 
     @property
     def violations(self) -> tuple[str, ...]:
@@ -38,15 +39,17 @@ def assess_robustness(
     design: Design, analysis: Analysis, spec: Spec | None, *, units: int | None = None
 ) -> Robustness:
     """Yield, spread, bias stability and thermal margins of `design`."""
+    from stagesynth.judging.jfet_stability import jfet_stability
     from stagesynth.judging.stability import stability_factors, thermal_checks
 
     env = Environment.for_design(design, spec)
     stab = stability_factors(design, env)
     therm = thermal_checks(analysis)
+    fets = jfet_stability(design, env)
     if spec is None:
-        return Robustness(None, (), (), tuple(stab), tuple(therm))
+        return Robustness(None, (), (), tuple(stab), tuple(therm), fets)
     n = units or (TARGET_UNITS if spec.require.yield_target is not None else REPORT_UNITS)
     est = monte_carlo(design, spec, n)
     sp = spreads(design, spec)
     advice = recommendations(sp, spec, tuple(est.failures))
-    return Robustness(est, sp, tuple(advice), tuple(stab), tuple(therm))
+    return Robustness(est, sp, tuple(advice), tuple(stab), tuple(therm), fets)

@@ -17,6 +17,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from stagesynth.contracts.device import T_REF_C, Device, hfe_at
+from stagesynth.contracts.jfet import NOMINAL_U
 from stagesynth.contracts.netlist import Design
 from stagesynth.engine.analysis import Analysis, Environment
 from stagesynth.engine.circuit import Circuit, compile_design
@@ -178,7 +179,8 @@ def _stack(
 ) -> Circuit:
     """One circuit holding K disjoint copies of `circuit` that share ground and supply.
 
-    Copy k uses devices[k] (one per transistor). The load and, when non-zero, the
+    Copy k uses devices[k] (one per transistor, circuit.transistors order: bipolar
+    transistors, then junction FETs). The load and, when non-zero, the
     source resistance become explicit resistors of every copy (append their values
     to each copy's resistor row); a zero source resistance ties each copy's input to
     ground, as the DC solver does. This lets one batched solve give each member its
@@ -199,13 +201,18 @@ def _stack(
     names: list[str] = []
     resistors = []
     bjts = []
+    jfets = []
+    nb = len(circuit.bjts)
     for k in range(k_count):
         names.extend(f"{name}@{k}" for name in circuit.node_names)
         resistors.extend((f"{ref}@{k}", at(k, a), at(k, b)) for ref, a, b in circuit.resistors)
         resistors.append((f"RL@{k}", at(k, circuit.output), gnd))
         if not tie_input:
             resistors.append((f"RS@{k}", at(k, circuit.input), gnd))
-        for q, dev in zip(circuit.bjts, devices[k], strict=True):
+        for q, dev in zip(circuit.jfets, devices[k][nb:], strict=True):
+            jfets.append(replace(q, ref=f"{q.ref}@{k}", device=dev, d=at(k, q.d),
+                                 g=at(k, q.g), s=at(k, q.s)))
+        for q, dev in zip(circuit.bjts, devices[k][:nb], strict=True):
             bjts.append(
                 replace(
                     q,
@@ -228,6 +235,7 @@ def _stack(
         bjts=tuple(bjts),
         input=gnd,
         output=gnd,
+        jfets=tuple(jfets),
     )
 
 
@@ -251,12 +259,13 @@ def stability_factors(
     if nq == 0:
         return ()
     base = [q.device for q in circuit.bjts]
+    fets = [q.device for q in circuit.jfets]  # junction FETs ride along at their nominal
     hfe_typ = np.array([d.hfe_nominal for d in base])
 
-    devices: list[list[Device]] = [list(base)]
+    devices: list[list[Device]] = [list(base) + fets]
     for j in range(nq):
         for sign in (1.0, -1.0):
-            devs = list(base)
+            devs = list(base) + fets
             devs[j] = base[j].with_overrides(vbe=base[j].vbe + sign * VBE_STEP)
             devices.append(devs)
     k_count = len(devices)
@@ -292,20 +301,24 @@ def stability_factors(
     row = [vals[ref] for ref, _, _ in circuit.resistors] + [design.load_resistance]
     if design.source_resistance > 0:
         row.append(design.source_resistance)
+    nj = len(fets)
     leakage = np.tile(np.array(leak_rows), (1, k_count))  # same injection in every copy
+    leakage = np.concatenate([leakage, np.zeros((b_count, nj * k_count))], axis=1)
+    spread = np.concatenate([np.tile(np.array(hfe_rows), (1, k_count)),
+                             np.full((b_count, nj * k_count), NOMINAL_U)], axis=1)
     dc = solve_dc(
         stacked,
         np.tile(np.array(row * k_count), (b_count, 1)),
         np.full(b_count, design.supply_voltage),
-        np.tile(np.array(hfe_rows), (1, k_count)),
+        spread,
         np.array(ambients),
         0.0 if design.source_resistance <= 0 else math.inf,
         math.inf,
         leakage=leakage,
     )
     # collector terminal current = transport current + injected ICBO; (B, K, nQ)
-    ic = (dc.ic + leakage).reshape(b_count, k_count, nq)
-    tj = dc.tj.reshape(b_count, k_count, nq)
+    ic = (dc.ic + leakage)[:, :nq * k_count].reshape(b_count, k_count, nq)
+    tj = dc.tj[:, :nq * k_count].reshape(b_count, k_count, nq)
     stiffness = _stiffness(design, circuit)
 
     out = []
@@ -423,6 +436,13 @@ def robustness_dict(
 
 def robustness(analysis: Analysis) -> dict:
     """Stability factors and thermal checks of an analysed design, as one JSON-ready dict."""
-    return robustness_dict(
+    from stagesynth.judging.jfet_stability import jfet_stability, jfet_stability_dicts
+
+    out = robustness_dict(
         stability_factors(analysis.design, analysis.environment), thermal_checks(analysis)
     )
+    fets = jfet_stability(analysis.design, analysis.environment)
+    if fets:  # junction FETs: IDSS, VP and temperature move the bias, not ICBO/VBE/hFE
+        out["jfet_stability"] = jfet_stability_dicts(fets)
+        out["units"].update(s_idss="(A/A)/(A/A)", s_vp="A/V", s_t="A/K", id="A")
+    return out

@@ -124,17 +124,18 @@ def thermal_checks(analysis: Analysis, *, step: float = TJ_STEP) -> tuple[Therma
         design, devices={n: d.with_overrides(theta_ja=None) for n, d in design.devices.items()}
     )
     circuit = compile_design(opened)
-    nq = len(circuit.bjts)
+    nq = circuit.nq  # bipolar transistors and junction FETs alike (VDS·ID heats a FET)
     if nq == 0:
         return ()
+    trans = circuit.transistors
     corners = list(analysis.corners)
-    hottest = [_hottest(corners, q.ref) for q in circuit.bjts]
+    hottest = [_hottest(corners, q.ref) for q in trans]
     failed = [c for c in corners if not c.converged]
 
     # members: per transistor Tj +- step and the heating path; then a scan per failed corner
     conds: list[tuple[PointResult, float]] = []
     paths: list[np.ndarray] = []
-    for q, hot in zip(circuit.bjts, hottest, strict=True):
+    for q, hot in zip(trans, hottest, strict=True):
         if hot is None:
             paths.append(np.zeros(0))
             continue
@@ -152,7 +153,7 @@ def thermal_checks(analysis: Analysis, *, step: float = TJ_STEP) -> tuple[Therma
             circuit,
             np.tile(r_row, (len(conds), 1)),
             np.array([c.condition.supply for c, _ in conds]),
-            np.array([[c.condition.hfe[q.device_name] for q in circuit.bjts] for c, _ in conds]),
+            np.array([[c.condition.hfe[q.device_name] for q in trans] for c, _ in conds]),
             np.array([t for _, t in conds]),
             design.source_resistance,
             design.load_resistance,
@@ -161,7 +162,7 @@ def thermal_checks(analysis: Analysis, *, step: float = TJ_STEP) -> tuple[Therma
 
     checks = []
     m = 0
-    for j, q in enumerate(circuit.bjts):
+    for j, q in enumerate(trans):
         dev = design.devices[q.device_name]
         theta = dev.theta_ja or 0.0
         tj_max, tj_src = junction_max(dev.p_max, dev.theta_ja)

@@ -314,6 +314,9 @@ def robustness_section(rob, spec: Spec | None) -> Section:
         blocks.append(Table(("transistor", "IC", "S_I", "S_V", "S_β", "RTH/(β+1)RE",
                              "IC over hFE", "IC over ambient"), tuple(rows),
                             numeric=(1, 2, 3, 4, 5, 6, 7)))
+    from stagesynth.report.jfetview import jfet_stability_blocks
+
+    blocks += jfet_stability_blocks(rob)
     if rob.thermal:
         rows = []
         for t in rob.thermal:
