@@ -95,9 +95,13 @@ def build_document(
         status += " Warning: the DC operating point did not converge at some condition."
         ok = False
 
+    from stagesynth.report.jfetview import spread_words
+
+    words = spread_words(design)
     sections: list[Section] = []
     sections.append(Section("Summary", (
-        "Nominal conditions: hFE typical, 25 °C ambient, nominal supply and part values. "
+        f"Nominal conditions: {words['nominal']}, 25 °C ambient, nominal supply and part "
+        "values. "
         "Gain is v_load / v_source_emf with the source resistance and the load in place.",
         summary_table(analysis),
     )))
@@ -130,9 +134,9 @@ def build_document(
     )))
     ops, volts = operating_tables(design, analysis)
     sections.append(Section("Operating point at every corner", (
-        "Corners combine hFE min and max, the ambient extremes and the supply tolerance. "
+        f"Corners combine {words['corners']}, the ambient extremes and the supply tolerance. "
         "Currents and voltages are magnitudes in the transistor's own sense (positive when "
-        "active); the swing is the largest symmetric output sine before cutoff or saturation.",
+        f"active); the swing is the largest symmetric output sine before {words['edge']}.",
         ops,
         "DC node voltages (to ground):",
         volts,

@@ -29,3 +29,19 @@ def jfet_stability_blocks(rob) -> list:
             "(25 °C) and its change over the ambient range.")
     return [text, Table(("FET", "ID", "S_IDSS", "S_VP", "S_T", "ID over the pairing",
                          "ID over ambient"), rows, numeric=(1, 2, 3, 4, 6))]
+
+
+def spread_words(design) -> dict[str, str]:
+    """How the report names the production spread: hFE for bipolar transistors, the
+    IDSS/VP pairing for junction FETs, both for a design that holds both."""
+    bjt, fet = bool(design.bjts), bool(design.jfets)
+    nominal = " and ".join(w for w, on in (("hFE typical", bjt or not fet),
+                                           ("the nominal IDSS/VP unit", fet)) if on)
+    corners = " and ".join(w for w, on in (("hFE min and max", bjt or not fet),
+                                           ("both ends of the IDSS/VP pairing", fet)) if on)
+    draws = ", ".join(w for w, on in (("hFE log-uniform over its spread", bjt or not fet),
+                                      ("each FET's place along its IDSS/VP pairing uniform",
+                                       fet)) if on)
+    edge = "cutoff or saturation" + (" (for a FET: the triode edge VDS = VGS − VP)"
+                                     if fet else "")
+    return {"nominal": nominal, "corners": corners, "draws": draws, "edge": edge}

@@ -255,6 +255,15 @@ def supply_stability_section(analysis: Analysis, spec: Spec | None,
     return Section("Supply rejection, peaking and stability", tuple(blocks))
 
 
+def rob_draws(rob) -> str:
+    """How the Monte Carlo draws the transistors' spreads (hFE, or a FET's pairing)."""
+    fets = bool(getattr(rob, "jfet", ()))
+    return ("hFE log-uniform over its spread, each FET's place along its IDSS/VP pairing "
+            "uniform" if fets and getattr(rob, "stability", ()) else
+            "each FET's place along its IDSS/VP pairing uniform" if fets else
+            "hFE log-uniform over its spread")
+
+
 def robustness_section(rob, spec: Spec | None) -> Section:
     """Yield, spread, bias stability and thermal margins: building many units."""
     blocks: list = []
@@ -268,7 +277,7 @@ def robustness_section(rob, spec: Spec | None) -> Section:
             f"{100 * hi:.2f} %; seed {est.seed}, reproducible with `stagesynth analyze "
             f"DESIGN.json --spec SPEC.toml --yield {est.units} --seed {est.seed}`). Each "
             f"resistor is uniform within ±{100 * p.resistor_tolerance:g} %, each capacitor "
-            f"within ±{100 * p.capacitor_tolerance:g} %, hFE log-uniform over its spread and "
+            f"within ±{100 * p.capacitor_tolerance:g} %, {rob_draws(rob)} and "
             f"the supply within ±{100 * spec.supply.tolerance:g} %."
             + (f" Target: {100 * spec.require.yield_target:g} %."
                if spec.require.yield_target is not None else ""))
