@@ -193,3 +193,30 @@ def test_bias_stability_of_the_self_biased_fet() -> None:
     assert f.s_idss == pytest.approx(1.0 / (1.0 + gm * rs), rel=1e-3)
     assert f.s_vp == pytest.approx(gm * i_d * rs / (abs(VP) * (1.0 + gm * rs)), rel=1e-3)
     assert f.s_t == pytest.approx(0.0, abs=1e-12)  # the textbook device has no tempcos
+
+
+def test_analyze_json_on_a_jfet_design_file(tmp_path) -> None:
+    # the CLI end to end: contract §4 keys, per-transistor records with kind, and the
+    # common-source gain -gm RD'/(1 + gm RS1) (Sedra & Smith, from memory)
+    import json
+
+    from typer.testing import CliRunner
+
+    from stagesynth.cli import app
+
+    rd, rl, rs1 = 2200.0, 1e6, 100.0
+    path = tmp_path / "cs.json"
+    data = json.loads(common_source(rd=rd, rs1=rs1, rl=rl).to_json())
+    data["band"] = {"f_low": 100.0, "f_high": 1e4}
+    path.write_text(json.dumps(data), encoding="utf-8")
+    res = CliRunner().invoke(app, ["analyze", str(path), "--json"])
+    assert res.exit_code == 0, res.output
+    out = json.loads(res.output)
+    i_d = _self_bias_id(1000.0)
+    gm = 2.0 * math.sqrt(IDSS * i_d) / abs(VP)
+    rdl = rd * rl / (rd + rl)
+    assert 10 ** (out["gain_db"] / 20) == pytest.approx(gm * rdl / (1 + gm * rs1), rel=1e-3)
+    rec = out["corners"][0]["transistors"]["J1"]
+    assert rec["kind"] == "jfet" and rec["ic"] == pytest.approx(i_d, rel=1e-3)
+    assert rec["vgs"] == pytest.approx(-i_d * 1000.0, rel=1e-3) and rec["active"]
+    assert rec["vce"] == pytest.approx(15.0 - i_d * (rd + 1000.0), rel=1e-3)
