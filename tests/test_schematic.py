@@ -407,12 +407,9 @@ def reading(sheet, d: Design):
     pins = []  # (point, node, marks the node by name or symbol)
     for pl in placed:
         pins += [(pl.p, pl.two.nodes[0], False), (pl.q, pl.two.nodes[1], False)]
-    for t in sheet.bjts:
-        (bx, by), sgn = t.base, (-1 if t.pnp else 1)
-        c, b, e = t.nodes
-        pins += [((bx, by), b, False),
-                 ((bx + schematic.sheet.BJT_DX, by + sgn * schematic.sheet.BJT_DY), c, False),
-                 ((bx + schematic.sheet.BJT_DX, by - sgn * schematic.sheet.BJT_DY), e, False)]
+    for t in sheet.transistors:  # lead ends as schemdraw draws them (checked below)
+        (pc, pb, pe), (c, b, e) = t.pins(), t.nodes
+        pins += [(pb, b, False), (pc, c, False), (pe, e, False)]
     pins += [(p, d.ground, True) for p, _ in grounds]
     pins += [(p, d.supply_node, True) for p in sheet.flags]
     if rail_xs:
@@ -580,7 +577,7 @@ def test_family_drawn_as_a_wired_chain(family, polarity):
     sheet = schematic.choose_layout(d, {})
     assert unfaithful(sheet, d) == []
     assert sheet.names == []
-    (q1,) = sheet.bjts
+    (q1,) = sheet.transistors
     (in_at,) = [p for p, n in sheet.terminals if n == "in"]
     (out_at,) = [p for p, n in sheet.terminals if n == "out"]
     assert in_at[0] < q1.base[0] < out_at[0]

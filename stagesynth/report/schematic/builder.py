@@ -6,6 +6,7 @@ from __future__ import annotations
 import copy
 import math
 from collections.abc import Iterable, Mapping
+from dataclasses import replace
 
 from stagesynth.contracts.netlist import Design, Part
 from stagesynth.report.schematic.labels import FONT, fmt, part_text, supply_text, text_box
@@ -17,19 +18,16 @@ from stagesynth.report.schematic.recognize import (
     polarity_of,
 )
 from stagesynth.report.schematic.sheet import (
-    BJT_BOX,
-    BJT_DX,
-    BJT_DY,
     DOWN,
     EMF,
     EPS,
     LANE,
     UP,
-    Bjt,
     L,
     Point,
     Sheet,
     Space,
+    Transistor,
     Two,
     named_end,
     symbol_box,
@@ -50,8 +48,8 @@ class Builder:
         self.bus_end: dict[str, float] = {}
         self.used: set[str] = set()
         self.rails = {design.supply_node, design.ground}
-        self.bjt_nodes = {n for q in design.bjts for n in q.nodes}
-        self.passives = [p for p in design.parts if not p.is_bjt]
+        self.transistor_nodes = {n for q in design.transistors for n in q.nodes}
+        self.passives = [p for p in design.parts if not p.is_transistor]
         self.strict = True  # a part that finds no room fails the layout (else: drawn apart)
         self.deferred: set[str] = set()
         self.reserved: set[str] = set()  # parts a stage draws itself, not hung from a node
@@ -76,7 +74,7 @@ class Builder:
         return (
             node not in self.rails
             and node not in (self.d.input, self.d.output)
-            and node not in self.bjt_nodes
+            and node not in self.transistor_nodes
             and node not in self.home
         )
 
@@ -240,10 +238,16 @@ class Builder:
         self.sheet.terminals.append(((0.0, 0.0), "in"))
         self.place_node(d.input, (0.0, 0.0), required, terminal="in")
 
-    def place_bjt(self, q: Part, x_base: float, ty: float, last: str | None,
-                  shared_ok: bool, home_y: Mapping[str, float] | None = None,
-                  join: Iterable[str] = ()) -> dict[str, int]:
-        """Transistor with its base at (x_base, ty); collector and emitter nodes get homes.
+    def mark_of(self, q: Part) -> Transistor:
+        """The symbol of transistor q with its base (gate) at the origin."""
+        return Transistor(q.ref, is_pnp(q, self.d), (0.0, 0.0), "", q.nodes,
+                          fet=q.kind == "jfet")
+
+    def place_transistor(self, q: Part, x_base: float, ty: float, last: str | None,
+                         shared_ok: bool, home_y: Mapping[str, float] | None = None,
+                         join: Iterable[str] = ()) -> dict[str, int]:
+        """Transistor with its base at (x_base, ty); collector and emitter nodes get homes
+        (drain and source: a junction FET is placed the same way, gate at (x_base, ty)).
 
         `last`: the node to home last (kept free to the right). `shared_ok`: a terminal on a
         node placed elsewhere gets a stub with the node's name instead of failing.
@@ -252,16 +256,16 @@ class Builder:
         Returns the hanging direction of each newly homed node.
         """
         c, _, e = q.nodes
-        pnp = is_pnp(q, self.d)
-        s = -1 if pnp else 1  # +1: collector up (NPN), -1: emitter up (PNP)
         text = part_text(q, self.d, self.texts)
-        self.sheet.bjts.append(Bjt(q.ref, pnp, (x_base, ty), text, q.nodes))
-        bx0, by0, bx1, by1 = BJT_BOX
-        self.space.boxes.append((x_base + bx0, ty + by0, x_base + bx1, ty + by1))
+        mark = replace(self.mark_of(q), base=(x_base, ty), text=text)
+        self.sheet.transistors.append(mark)
+        self.space.boxes.append(mark.body())
         w, h = text_box(text, FONT)
-        self.space.boxes.append((x_base + 1.8, ty - h / 2, x_base + 1.9 + w, ty + h / 2))
-        xt = x_base + BJT_DX
-        ends = [(e, (xt, ty - s * BJT_DY, -s)), (c, (xt, ty + s * BJT_DY, s))]
+        x_label = x_base + mark.symbol.label_x + 0.45  # where the label's text starts
+        self.space.boxes.append((x_label, ty - h / 2, x_label + 0.1 + w, ty + h / 2))
+        # +1: collector (drain) up for N types, -1: emitter (source) up for P types
+        (xt, yc), _, (_, ye) = mark.pins()
+        ends = [(e, (xt, ye, 1 if ye > ty else -1)), (c, (xt, yc, 1 if yc > ty else -1))]
         ends.sort(key=lambda item: item[0] == last)  # the node to keep free goes last
         homed: dict[str, int] = {}
         for node, (x, y, direction) in ends:
@@ -319,6 +323,6 @@ class Builder:
         self.sheet.frames.append(((x_load - 0.7, DOWN, x_right + 1.9, ty + 1.5), "load"))
 
     def check_all_drawn(self) -> None:
-        left = [p.ref for p in self.d.parts if not p.is_bjt and p.ref not in self.used]
+        left = [p.ref for p in self.passives if p.ref not in self.used]
         if left:
             raise NotAChain(f"parts not drawn: {left}")

@@ -6,7 +6,7 @@ from __future__ import annotations
 from stagesynth.contracts.netlist import Part
 from stagesynth.report.schematic.builder import Builder
 from stagesynth.report.schematic.recognize import NotAChain, Stage, find_chain, is_pnp, other_end
-from stagesynth.report.schematic.sheet import BJT_BOX, BJT_DX, EPS, LANE, SIDE, L, Point, Sheet
+from stagesynth.report.schematic.sheet import EPS, LANE, SIDE, L, Point, Sheet
 
 
 class ChainBuilder(Builder):
@@ -71,6 +71,7 @@ class ChainBuilder(Builder):
         far end sits on a row beside the emitter side, joined to the emitter."""
         c, b, e = st.q.nodes
         s = -1 if is_pnp(st.q, self.d) else 1  # +1: collector up (NPN)
+        dx = self.mark_of(st.q).symbol.dx  # base to the collector and emitter leads
         ty = self.home[st.tap][1]
         single = [p for p in self.unused_at(b) if c not in self.rails and set(p.nodes) == {b, c}]
         split = self.through(b, c)
@@ -97,18 +98,18 @@ class ChainBuilder(Builder):
         elif split:
             m = split[1]
             width = (self.lane_count(m) - 1) * LANE
-            x_base = max(x_base, x_turn + 2 * L + width + 0.6 - BJT_DX)
+            x_base = max(x_base, x_turn + 2 * L + width + 0.6 - dx)
             home_y[c] = ty + s * SIDE
         elif boot:
             x = boot[1]
             width = (self.lane_count(x, s) - 1) * LANE
-            x_base = max(x_base, x_turn + width + L + 0.6 - BJT_DX)
+            x_base = max(x_base, x_turn + width + L + 0.6 - dx)
             home_y[e] = ty - s * SIDE
         x_base += extra
         if not self.space.h_ok(ty, self.bus_end[b], x_base, b):
             raise NotAChain("no room for the base row")
         self.extend_bus(b, x_base)
-        homed = self.place_bjt(st.q, x_base, ty, st.out_tap, shared_ok=False, home_y=home_y)
+        homed = self.place_transistor(st.q, x_base, ty, st.out_tap, shared_ok=False, home_y=home_y)
         if single and c in homed:  # collector-to-base resistor over (NPN) the transistor
             self.across(single[0], b, (x_turn, ty), c, self.home[c])
         elif split and c in homed:
@@ -144,6 +145,7 @@ class ChainBuilder(Builder):
         and decoupling parts hanging from the base row to local ground or supply symbols."""
         _, b, e = st.q.nodes
         s = -1 if is_pnp(st.q, self.d) else 1
+        sym = self.mark_of(st.q).symbol
         ty = self.home[st.tap][1]
         if b in self.home:
             raise NotAChain("base node placed elsewhere")
@@ -155,14 +157,14 @@ class ChainBuilder(Builder):
             end = self.bus_end[e]
         ty_b = ty + s * SIDE
         width = (self.lane_count(b) - 1) * LANE
-        x_base = max(end + 0.6 - BJT_DX, 0.6 + 1.6 + width) + extra
+        x_base = max(end + 0.6 - sym.dx, 0.6 + 1.6 + width) + extra
         self.place_node(b, (x_base - 1.6 - width, ty_b))
-        homed = self.place_bjt(st.q, x_base, ty_b, st.out_tap, shared_ok=False, join=(e,))
+        homed = self.place_transistor(st.q, x_base, ty_b, st.out_tap, shared_ok=False, join=(e,))
         self.hang(b, 0)
-        if not self.space.h_ok(ty_b, self.bus_end[b], x_base + BJT_BOX[0] - EPS, b):
+        if not self.space.h_ok(ty_b, self.bus_end[b], x_base + sym.box[0] - EPS, b):
             raise NotAChain("no room for the base row")
         self.extend_bus(b, x_base)
-        self.lane_start[e] = x_base + BJT_DX  # the emitter's own parts right under its lead
+        self.lane_start[e] = x_base + sym.dx  # the emitter's own parts right under its lead
         self.hang(e, -s)
         if st.out_tap in homed:
             xo, yo = self.home[st.out_tap]

@@ -12,15 +12,12 @@ from xml.sax.saxutils import escape
 from stagesynth.report.schematic.faithful import on_segment, rail_heights, rail_segment, resolve
 from stagesynth.report.schematic.labels import FONT, SMALL, text_box
 from stagesynth.report.schematic.sheet import (
-    BJT_BOX,
-    BJT_DX,
-    BJT_DY,
-    BJT_SCALE,
     DOWN,
     EPS,
     GREY,
     NET_BLUE,
     NODE_GREY,
+    TRANSISTOR_SCALE,
     Box,
     L,
     Point,
@@ -135,9 +132,7 @@ def render(sheet: Sheet, title: str) -> str:
         taken.append(body_box(pl.p, pl.q, pl.two.kind))
         if pl.two.polarized:
             taken.append(plus_box(pl.p, pl.q))
-    for q in sheet.bjts:
-        bx, by = q.base
-        taken.append((bx + BJT_BOX[0], by + BJT_BOX[1], bx + BJT_BOX[2], by + BJT_BOX[3]))
+    taken += [q.body() for q in sheet.transistors]
     for (gx, gy), _ in grounds:
         taken.append((gx - 0.4, gy - 0.7, gx + 0.4, gy))
     for fx, fy in sheet.flags:
@@ -158,9 +153,10 @@ def render(sheet: Sheet, title: str) -> str:
         taken.append((x0 + 0.1, y1 - 0.1 - h, x0 + 0.2 + w, y1 - 0.05))
 
     labels: list[tuple[Point, str, str, str, float, str]] = []
-    for q in sheet.bjts:
+    for q in sheet.transistors:
         bx, by = q.base
-        at, ha, va, box = label_spot((bx + 1.35, by), True, q.text, FONT, ("right",), taken)
+        at, ha, va, box = label_spot((bx + q.symbol.label_x, by), True, q.text, FONT,
+                                     ("right",), taken)
         taken.append(box)
         labels.append((at, q.text, ha, va, FONT, "black"))
     for pl in placed:
@@ -187,15 +183,14 @@ def render(sheet: Sheet, title: str) -> str:
             color = NET_BLUE if required else NODE_GREY
             labels.append((best[2], node, best[3], best[4], SMALL, color))
 
-    bjt_ends = []
-    for q in sheet.bjts:
-        bx, by = q.base
-        s = -1 if q.pnp else 1
-        bjt_ends += [(bx, by), (bx + BJT_DX, by + BJT_DY * s), (bx + BJT_DX, by - BJT_DY * s)]
+    lead_ends = []
+    for q in sheet.transistors:
+        pc, pb, pe = q.pins()
+        lead_ends += [pb, pc, pe]
     part_ends = [pt for pl in placed for pt in (pl.p, pl.q)]
     symbol_ends = [p for p, _ in grounds] + list(sheet.flags) + list(sheet.marks)
     term_points = [p for p, _ in sheet.terminals]
-    dots = junctions(segments, bjt_ends + part_ends + symbol_ends + term_points, term_points)
+    dots = junctions(segments, lead_ends + part_ends + symbol_ends + term_points, term_points)
 
     previous_mode = getattr(schemdraw.svgconfig, "text", "text")
     with contextlib.suppress(ValueError):
@@ -220,14 +215,20 @@ def render(sheet: Sheet, title: str) -> str:
             else:  # a part kind this drawing does not know: a plain box, still labelled
                 el = elm.ResistorIEC(color=color)
             d.add(el.endpoints(pl.p, pl.q))
-        for q in sheet.bjts:
-            cls = elm.BjtPnp if q.pnp else elm.BjtNpn
-            sym = d.add(cls(circle=True).scale(BJT_SCALE).theta(0).anchor("base").at(q.base))
+        for q in sheet.transistors:
+            pc, _, pe = q.pins()
+            if q.fet:  # gate facing left (reversed); a P channel upside down, source up
+                el = (elm.JFetP if q.pnp else elm.JFetN)(circle=True)
+                el = el.scale(TRANSISTOR_SCALE).theta(0).reverse()
+                sym = d.add((el.flip() if q.pnp else el).anchor("gate").at(q.base))
+                got_c, got_e = sym.drain, sym.source
+            else:
+                cls = elm.BjtPnp if q.pnp else elm.BjtNpn
+                sym = d.add(cls(circle=True).scale(TRANSISTOR_SCALE).theta(0)
+                            .anchor("base").at(q.base))
+                got_c, got_e = sym.collector, sym.emitter
             # should another schemdraw version move the terminals, join them to our wires
-            s = -1 if q.pnp else 1
-            bx, by = q.base
-            for got, want in ((sym.collector, (bx + BJT_DX, by + s * BJT_DY)),
-                              (sym.emitter, (bx + BJT_DX, by - s * BJT_DY))):
+            for got, want in ((got_c, pc), (got_e, pe)):
                 if math.dist((got[0], got[1]), want) > 1e-3:
                     d.add(elm.Line().endpoints((got[0], got[1]), want))
         for p, ext in grounds:

@@ -12,8 +12,6 @@ from dataclasses import dataclass
 
 from stagesynth.contracts.netlist import Design
 from stagesynth.report.schematic.sheet import (
-    BJT_DX,
-    BJT_DY,
     DOWN,
     EPS,
     NEAR,
@@ -28,7 +26,7 @@ from stagesynth.report.schematic.sheet import (
 def _finite_ys(sheet: Sheet) -> list[float]:
     ys = [y for t in sheet.twos for (_, y) in (t.a, t.b) if math.isfinite(y)]
     ys += [y for a, b, _ in sheet.wires for (_, y) in (a, b) if math.isfinite(y)]
-    ys += [q.base[1] + d for q in sheet.bjts for d in (-1.1, 1.1)]
+    ys += [q.base[1] + d for q in sheet.transistors for d in q.symbol.span]
     ys += [p[1] for p, _ in sheet.terminals]
     ys += [y for (_, y) in sheet.flags]
     return ys
@@ -111,12 +109,9 @@ def drawn_pins(sheet: Sheet, design: Design, placed, grounds,
     pins: list[tuple[Point, str, bool]] = []
     for pl in placed:
         pins += [(pl.p, pl.two.nodes[0], False), (pl.q, pl.two.nodes[1], False)]
-    for q in sheet.bjts:
-        bx, by = q.base
-        s = -1 if q.pnp else 1
-        c, b, e = q.nodes
-        pins += [((bx, by), b, False), ((bx + BJT_DX, by + s * BJT_DY), c, False),
-                 ((bx + BJT_DX, by - s * BJT_DY), e, False)]
+    for q in sheet.transistors:
+        (pc, pb, pe), (c, b, e) = q.pins(), q.nodes
+        pins += [(pb, b, False), (pc, c, False), (pe, e, False)]
     pins += [(p, design.ground, True) for p, _ in grounds]
     pins += [(p, design.supply_node, True) for p in sheet.flags]
     if rail is not None:

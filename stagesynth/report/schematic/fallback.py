@@ -18,15 +18,13 @@ from stagesynth.report.schematic.recognize import (
     signal_order,
 )
 from stagesynth.report.schematic.sheet import (
-    BJT_DX,
-    BJT_DY,
     EMF,
     LANE,
     NET_BLUE,
-    Bjt,
     L,
     Point,
     Sheet,
+    Transistor,
     Two,
     named_end,
     node_text,
@@ -62,7 +60,8 @@ class NetBuilder(Builder):
                 self.hang(b, 0)
                 x_base = self.bus_end[b] + 1.6
                 self.extend_bus(b, x_base)
-            for node, direction in self.place_bjt(q, x_base, 0.0, None, shared_ok=True).items():
+            homed = self.place_transistor(q, x_base, 0.0, None, shared_ok=True)
+            for node, direction in homed.items():
                 self.hang(node, direction)
         # room for the parts between placed nodes, drawn apart with named ends (below)
         x_links = self.space.right_edge() + 1.0
@@ -144,7 +143,8 @@ def generic_sheet(design: Design, texts: Mapping[str, str]) -> Sheet:
     order = signal_order(design)
     near = [hop_distances(adj, [n for n in q.nodes if n not in rails]) for q in order]
     blocks: list[list[Part]] = [[] for _ in range(max(len(order), 1))]
-    for p in sorted((p for p in design.parts if not p.is_bjt), key=lambda p: natural_key(p.ref)):
+    passives = (p for p in design.parts if not p.is_transistor)
+    for p in sorted(passives, key=lambda p: natural_key(p.ref)):
         nodes = [n for n in p.nodes if n not in rails]
         if not near or not nodes:
             blocks[-1].append(p)
@@ -181,19 +181,20 @@ def generic_sheet(design: Design, texts: Mapping[str, str]) -> Sheet:
         y_parts = -2.5
         if i < len(order):
             q = order[i]
-            pnp = is_pnp(q, design)
             base = (x + 1.6, 0.0)
-            sheet.bjts.append(Bjt(q.ref, pnp, base, part_text(q, design, texts), q.nodes))
+            mark = Transistor(q.ref, is_pnp(q, design), base, part_text(q, design, texts),
+                              q.nodes, fet=q.kind == "jfet")
+            sheet.transistors.append(mark)
             c, b, e = q.nodes
-            xt = base[0] + BJT_DX
-            top, bottom = (e, c) if pnp else (c, e)
+            (xt, yc), _, (_, ye) = mark.pins()
+            (top, y_hi), (bottom, y_lo) = sorted(((c, yc), (e, ye)), key=lambda t: -t[1])
             sheet.wires.append((base, (x + 0.6, 0.0), False))
             end((x + 0.6, 0.0), b, "left")
-            sheet.wires.append(((xt, BJT_DY), (xt, BJT_DY + 0.8), False))
-            end((xt, BJT_DY + 0.8), top, "up")
-            sheet.wires.append(((xt, -BJT_DY), (xt, -BJT_DY - 0.8), False))
-            end((xt, -BJT_DY - 0.8), bottom, "down")
-            y_parts = -BJT_DY - 3.0
+            sheet.wires.append(((xt, y_hi), (xt, y_hi + 0.8), False))
+            end((xt, y_hi + 0.8), top, "up")
+            sheet.wires.append(((xt, y_lo), (xt, y_lo - 0.8), False))
+            end((xt, y_lo - 0.8), bottom, "down")
+            y_parts = y_lo - 3.0
         for j, p in enumerate(parts):
             col, row = j % ncols, j // ncols
             px = x + 0.8 + col * _CELL

@@ -45,10 +45,13 @@ def part_text(part: Part, design: Design, texts: Mapping[str, str]) -> str:
     """Two-line label: reference designator, then the value (or the transistor type)."""
     if part.ref in texts:
         return f"{part.ref}\n{texts[part.ref]}"
-    if part.is_bjt:
-        dev = design.devices.get(part.device or "")
+    dev = design.devices.get(part.device or "")
+    if part.kind == "bjt":
         kind = dev.polarity.upper() if dev is not None else "BJT"
         return f"{part.ref}\n{kind}"
+    if part.kind == "jfet":  # "N-JFET", "P-JFET": the channel, as the trade writes it
+        channel = getattr(dev, "polarity", "")
+        return f"{part.ref}\n{channel.upper() + '-' if channel in ('n', 'p') else ''}JFET"
     return f"{part.ref}\n{fmt(part.value, _UNITS.get(part.kind, ''))}"
 
 

@@ -2,7 +2,9 @@
 
 Which transistor feeds which, where the signal enters each stage (base or emitter), which part
 couples one stage to the next, the order of the transistors along the signal, and which
-electrolytic keeps + on which node. No drawing library here: only the design's netlist.
+electrolytic keeps + on which node. A junction FET is recognized like a bipolar transistor:
+drain, gate and source take the places of collector, base and emitter. No drawing library
+here: only the design's netlist.
 """
 
 from __future__ import annotations
@@ -16,8 +18,9 @@ from stagesynth.contracts.netlist import Design, Part
 
 
 def is_pnp(part: Part, design: Design) -> bool:
+    """A P-type transistor (PNP, P channel): drawn upside down, emitter or source up."""
     dev = design.devices.get(part.device or "")
-    return dev is not None and dev.polarity == "pnp"
+    return dev is not None and getattr(dev, "polarity", "") in ("pnp", "p")
 
 
 def polarity_of(design: Design, part: Part) -> str | None:
@@ -58,8 +61,8 @@ def find_chain(design: Design) -> tuple[list[Stage], Part | None]:
     the entry is the tap node itself or one part away from it.
     """
     rails = {design.supply_node, design.ground}
-    passives = [p for p in design.parts if not p.is_bjt]
-    pending = sorted(design.bjts, key=lambda q: natural_key(q.ref))
+    passives = [p for p in design.parts if not p.is_transistor]
+    pending = sorted(design.transistors, key=lambda q: natural_key(q.ref))
     if not pending:
         raise NotAChain("no transistor")
     taps = [design.input]
@@ -174,7 +177,7 @@ def signal_order(design: Design) -> list[Part]:
     adj = node_graph(design)
     dist = hop_distances(adj, [design.input])
     return sorted(
-        design.bjts,
+        design.transistors,
         key=lambda q: (min((dist.get(n, 10**6) for n in q.nodes), default=10**6),
                        natural_key(q.ref)),
     )

@@ -30,13 +30,35 @@ EMF = "(source emf)"  # the node between the source's EMF and Rs: not in the net
 SIDE = 4.6  # signal row to a row beside it: a part plus a local ground or supply symbol
 NEAR = 1.2  # an open end this close to another node's conductor reads as joined to it
 
-# Geometry of schemdraw's Bjt symbol drawn at 1.5 times its size (to match the resistors):
-# collector and emitter offsets from the base terminal, and the body's extent.
-BJT_SCALE = 1.5
-BJT_DX = 1.1275
-BJT_DY = 1.045
-BJT_BOX = (-0.05, -0.9, 1.7, 0.9)
+TRANSISTOR_SCALE = 1.5  # schemdraw's transistor symbols at 1.5 times their size (to match
+# the resistors)
 
+
+@dataclass(frozen=True)
+class Symbol:
+    """Geometry of a transistor symbol, N type (collector or drain up), relative to its control
+    terminal (base or gate): x of the other two terminals, their heights, the body's extent."""
+
+    dx: float
+    top: float  # collector / drain
+    bottom: float  # emitter / source
+    box: Box  # x0, y0, x1, y1
+    span: tuple[float, float]  # heights the rails must clear
+    label_x: float  # the label's anchor: its text starts 0.45 right of this, clear of the body
+
+    def mirrored(self) -> Symbol:
+        """The P type: drawn upside down (emitter or source up)."""
+        x0, y0, x1, y1 = self.box
+        return Symbol(self.dx, -self.top, -self.bottom, (x0, -y1, x1, -y0),
+                      (-self.span[1], -self.span[0]), self.label_x)
+
+
+# schemdraw's Bjt at that scale: collector and emitter symmetric about the base row
+BJT = Symbol(1.1275, 1.045, -1.045, (-0.05, -0.9, 1.7, 0.9), (-1.1, 1.1), 1.35)
+# schemdraw's JFet at that scale, mirrored left-right so that the gate faces left: the gate
+# sits nearer the source than the drain, as the symbol draws it. Its circle reaches 0.1 past
+# the drain and source lead ends; the box stops short of them so that the leads can leave it.
+JFET = Symbol(1.375, 1.375, -0.625, (-0.1, -0.6, 2.15, 1.35), (-0.8, 1.5), 1.8)
 
 # The sheet: what to draw, in drawing units; y = UP/DOWN run to the supply rail/ground
 @dataclass(frozen=True)
@@ -55,12 +77,30 @@ class Two:
 
 
 @dataclass(frozen=True)
-class Bjt:
+class Transistor:
+    """A transistor symbol with its control terminal (base or gate) at `base`."""
+
     ref: str
-    pnp: bool
+    pnp: bool  # P type (PNP or P channel): drawn upside down
     base: Point
     text: str
-    nodes: tuple[str, ...] = ("", "", "")  # collector, base, emitter
+    nodes: tuple[str, ...] = ("", "", "")  # collector, base, emitter (drain, gate, source)
+    fet: bool = False  # a junction FET (drain, gate, source)
+
+    @property
+    def symbol(self) -> Symbol:
+        sym = JFET if self.fet else BJT
+        return sym.mirrored() if self.pnp else sym
+
+    def pins(self) -> tuple[Point, Point, Point]:
+        """Where the collector (drain), base (gate) and emitter (source) leads end."""
+        sym, (bx, by) = self.symbol, self.base
+        return (bx + sym.dx, by + sym.top), (bx, by), (bx + sym.dx, by + sym.bottom)
+
+    def body(self) -> Box:
+        """The room the symbol takes."""
+        (x0, y0, x1, y1), (bx, by) = self.symbol.box, self.base
+        return (bx + x0, by + y0, bx + x1, by + y1)
 
 
 @dataclass
@@ -69,7 +109,7 @@ class Sheet:
 
     supply_text: str
     twos: list[Two] = field(default_factory=list)
-    bjts: list[Bjt] = field(default_factory=list)
+    transistors: list[Transistor] = field(default_factory=list)
     wires: list[tuple[Point, Point, bool]] = field(default_factory=list)  # a, b, external
     grounds: list[tuple[Point, bool]] = field(default_factory=list)  # symbol hangs below
     flags: list[Point] = field(default_factory=list)  # local supply symbol above the point
