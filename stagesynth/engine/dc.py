@@ -233,7 +233,7 @@ class _Model:
                 J[:, node, q.e] -= d_vbe[t] + d_vce[t]
                 J[:, node, q.c] += d_vce[t]
         def cat(a, b):
-            return np.concatenate([a, b], axis=1)
+            return np.concatenate([a, b], axis=1) if b.shape[1] else a
 
         nan = np.full_like(fet["ic"], np.nan)
         vsat = cat(np.broadcast_to(self.vce_sat, ic.shape), fet["vsat"])

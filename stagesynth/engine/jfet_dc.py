@@ -52,12 +52,14 @@ def stamp(jfets, v: np.ndarray, u: np.ndarray, tj: np.ndarray, F: np.ndarray,
     ic = ID, ib = gate current into the gate (-i_gss), vbe = VGS, vce = VDS, gm = dID/dVGS,
     go = dID/dVDS, vsat = VGS - VP (the VDS where saturation ends), idss, vp.
     """
+    if not jfets:  # a bipolar-only circuit: nothing to stamp (the common case, kept cheap)
+        e = np.zeros((v.shape[0], 0))
+        return dict(ic=e, ib=e, vbe=e, vce=e, gm=e, go=e, vsat=e, idss=e, vp=e)
     idss, vp = unit_at(jfets, u, tj)
     vgs, vds = terminal_voltages(jfets, v)
     va = np.array([q.device.early_voltage for q in jfets])
     i_d, gm, gds = drain_current(idss, vp, vgs, vds, va)
-    leak = np.stack([gate_leakage(q.device, tj[:, k]) for k, q in enumerate(jfets)], axis=1) \
-        if jfets else np.zeros_like(tj)
+    leak = np.stack([gate_leakage(q.device, tj[:, k]) for k, q in enumerate(jfets)], axis=1)
     for k, q in enumerate(jfets):
         s = q.device.sign
         F[:, q.d] += s * i_d[:, k]
