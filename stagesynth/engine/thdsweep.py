@@ -49,7 +49,7 @@ def distortion_views(analysis: Analysis, thd_limit: float | None = None,
     design: Design = analysis.design
     fig = analysis.figures
     swing = analysis.nominal.swing_vpp
-    if fig is None or not design.bjts or not swing > 0 or analysis.thd_level is None:
+    if fig is None or not design.transistors or not swing > 0 or analysis.thd_level is None:
         return None
     circuit = compile_design(design)
     from stagesynth.engine.analysis import batch_values
@@ -73,7 +73,8 @@ def distortion_views(analysis: Analysis, thd_limit: float | None = None,
     phase, waves = sol.load_waveform(samples)
     tw = sol.transistor_waveforms(samples)
     edge = analysis.nominal.swing_limit
-    side, reason = _clipping(edge, circuit, tw, waves[LEVELS - 1], design)
+    vp = None if fig.dc.vp is None or not circuit.jfets else fig.dc.vp[0]
+    side, reason = _clipping(edge, circuit, tw, waves[LEVELS - 1], design, vp)
     return DistortionViews(
         freq=freq, levels=levels, thd=sol.thd[:LEVELS], hd2=sol.hd2[:LEVELS],
         hd3=sol.hd3[:LEVELS], converged=sol.converged[:LEVELS], swing_vpp=float(swing),
@@ -85,15 +86,19 @@ def distortion_views(analysis: Analysis, thd_limit: float | None = None,
 
 
 def _clipping(edge: str, circuit, tw: dict[str, np.ndarray], wave: np.ndarray,
-              design) -> tuple[str, str]:
-    """Which output peak meets the limiting edge first, and why (from the waveforms)."""
-    refs = [q.ref for q in circuit.bjts]
+              design, vp: np.ndarray | None = None) -> tuple[str, str]:
+    """Which output peak meets the limiting edge first, and why (from the waveforms).
+    `vp`: the junction FETs' VP at the nominal point (N frame), for the triode edge."""
+    refs = [q.ref for q in circuit.transistors]
     parts = edge.split()
-    if len(parts) != 2 or parts[0] not in refs:
+    if len(parts) < 2 or parts[0] not in refs:
         return "", edge
-    ref, kind = parts
+    ref, kind = parts[0], parts[1] if len(parts) == 2 else "triode"
     k = refs.index(ref)
     member = LEVELS - 1
+    nb = len(circuit.bjts)
+    if k >= nb and vp is not None:  # a junction FET
+        return _fet_clipping(ref, kind, tw, wave, k, float(vp[k - nb]), member)
     trace = tw["ic"][member, k] if kind == "cutoff" else tw["vce"][member, k]
     at = int(np.argmin(trace))
     side = "positive" if wave[at] >= np.mean(wave) else "negative"
@@ -112,3 +117,27 @@ def _clipping(edge: str, circuit, tw: dict[str, np.ndarray], wave: np.ndarray,
                "DC headroom sets this edge; the contract's forward-active law does not bend "
                "there, so the waveform past it is the model's, not a real transistor's)")
     return side, why
+
+
+def _fet_clipping(ref: str, kind: str, tw: dict[str, np.ndarray], wave: np.ndarray, k: int,
+                  vp: float, member: int) -> tuple[str, str]:
+    """The clipping side and reason for a junction FET: its drain current reaching zero,
+    or VDS reaching VGS - VP (the channel leaves saturation for the triode region)."""
+    i_d = tw["ic"][member, k]
+    margin = tw["vce"][member, k] - (tw["vbe"][member, k] - vp)
+    trace = i_d if kind == "cutoff" else margin
+    at = int(np.argmin(trace))
+    side = "positive" if wave[at] >= np.mean(wave) else "negative"
+    if kind == "cutoff":
+        share = i_d[at] / max(float(np.mean(i_d)), 1e-300)
+        low = "essentially zero" if share < 1e-3 else f"{100 * share:.2g} % of its average"
+        why = (f"{ref} runs out of current first: at the {side} output peak its drain "
+               f"current falls to {low} (the bias current times the AC load sets this edge; "
+               "more drain current or a larger AC load resistance moves it out)")
+    else:
+        why = (f"{ref} runs out of voltage first: at the {side} output peak its VDS comes "
+               f"within {trace[at]:.3g} V of VGS − VP, where the channel leaves saturation "
+               "for the triode region (the drain's DC headroom above the pinch-off edge "
+               "sets this edge)")
+    return side, why
+

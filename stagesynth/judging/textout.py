@@ -75,6 +75,13 @@ def margin_text(c: Check) -> str:
     if c.name == "active":
         if not math.isfinite(h):
             return "no DC solution"
+        edge = getattr(c, "edge", "bjt")
+        if edge == "jfet":
+            return f"VDS ≥ VGS − VP + {fmt(h, 'V')}" if h >= 0 else (
+                f"VDS {fmt(-h, 'V')} below VGS − VP")
+        if edge == "mixed":
+            return (f"{fmt(h, 'V')} above the nearest edge (VCE(sat); VGS − VP for a FET)"
+                    if h >= 0 else f"{fmt(-h, 'V')} past the edge (VCE(sat); VGS − VP for a FET)")
         return f"VCE ≥ VCE(sat) + {fmt(h, 'V')}" if h >= 0 else (
             f"VCE {fmt(-h, 'V')} below VCE(sat)")
     if c.name.endswith(".thermal_runaway"):

@@ -69,6 +69,9 @@ class Check:
     condition: str = ""  # label of the condition that decided the row ("" when none)
     headroom: float = math.nan  # distance to the limit in headroom_unit (Row.headroom)
     headroom_unit: str = ""
+    # junction FETs: which edge the "active" headroom is measured from ("bjt", "jfet" or
+    # "mixed"), so the text names VCE(sat) or VGS − VP
+    edge: str = "bjt"
 
     def to_dict(self) -> dict:
         limit = list(self.limit) if isinstance(self.limit, tuple) else self.limit
@@ -175,9 +178,11 @@ def judge(analysis: Analysis, spec: Spec) -> Verdict:
                           f"{points[int(row.condition[0])].condition.label}: see 'active'")
         if row.name == "active":
             head, head_unit = _saturation_headroom(analysis, points), "V"
+        d = analysis.design
+        edge = "mixed" if d.bjts and d.jfets else ("jfet" if d.jfets else "bjt")
         checks.append(
             Check(row.name, value, row.limit, bool(row.ok[0]), float(row.margin[0]),
-                  row.relation, row.unit, row.where, detail, label, head, head_unit)
+                  row.relation, row.unit, row.where, detail, label, head, head_unit, edge)
         )
     checks.extend(_runaway_checks(analysis))
     return Verdict(tuple(checks))
