@@ -129,7 +129,11 @@ def build_document(
         bom_table(bom),
         "To order (bom.csv): identical parts grouped, with what each must offer. A "
         "transistor is any part of that polarity whose hFE spread lies within the range "
-        "shown, with at least the fT and ratings listed and at most the Ccb.",
+        "shown, with at least the fT and ratings listed and at most the Ccb."
+        + (" A junction FET is any part of that channel whose IDSS and pinch-off spreads "
+           "lie within those shown, paired as stated (low IDSS with the pinch-off nearest "
+           "zero), with at most the capacitances and gate leakage listed."
+           if design.jfets else ""),
         order_table(bom),
     )))
     ops, volts = operating_tables(design, analysis)

@@ -22,8 +22,8 @@ def jfet_row(design: Design, analysis: Analysis, part: Part) -> dict[str, str]:
     supply = max(p.condition.supply for p in points)
     channel = "N-channel" if dev.polarity == "n" else "P-channel"
     vp_lo, vp_hi = sorted(dev.vp, key=abs)
-    spread = (f"IDSS {fq(dev.idss_min, 'A')}–{fq(dev.idss_max, 'A')} with VP "
-              f"{fq(vp_lo, 'V')}–{fq(vp_hi, 'V')} (paired)")
+    spread = (f"IDSS {fq(dev.idss_min, 'A')} to {fq(dev.idss_max, 'A')} with VP "
+              f"{fq(vp_lo, 'V')} to {fq(vp_hi, 'V')} (paired)")
     ratings = [f"VDS(max) ≥ {fq(supply, 'V')}"]
     if active:
         point, worst = max(active, key=lambda ps: ps[1].vce * ps[1].ic)

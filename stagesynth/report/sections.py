@@ -128,10 +128,12 @@ def order_table(rows: Sequence[Mapping[str, str]]) -> Table:
 
 
 def operating_tables(design: Design, analysis: Analysis) -> tuple[Table, Table]:
-    refs = [p.ref for p in design.bjts]
+    refs = [p.ref for p in design.transistors]  # a junction FET: ID, VDS (edge VGS − VP)
+    fets = {p.ref for p in design.jfets}
     header = ["condition"]
     for r in refs:
-        header += [f"{r} IC", f"{r} VCE", f"{r} Tj", f"{r} dissipation"]
+        i, v = ("ID", "VDS") if r in fets else ("IC", "VCE")
+        header += [f"{r} {i}", f"{r} {v}", f"{r} Tj", f"{r} dissipation"]
     sat = {p.ref: design.devices[p.device].vce_sat for p in design.bjts}
     header += ["supply I", "swing", "limited by", "active"]
     rows = []
@@ -140,7 +142,7 @@ def operating_tables(design: Design, analysis: Analysis) -> tuple[Table, Table]:
         row = [p.condition.label]
         for r in refs:
             s = p.transistors[r]
-            ic, vce, power = transistor_cells(s, sat[r])
+            ic, vce, power = transistor_cells(s, s.vsat if r in fets else sat[r])
             row += [ic, vce, f"{s.tj:.1f} °C", power]
         row += [fmt(p.supply_current, "A"), fmt(p.swing_vpp, "Vpp"), p.swing_limit,
                 "yes" if p.active else "NO"]
