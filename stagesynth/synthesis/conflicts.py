@@ -8,6 +8,7 @@ import math
 
 import numpy as np
 
+from stagesynth.contracts.jfet import is_jfet
 from stagesynth.contracts.spec import Spec
 from stagesynth.engine.analysis import (
     Analysis,
@@ -26,14 +27,17 @@ def _physics_conflicts(spec: Spec) -> list[Conflict]:
     r = spec.require
     dev = spec.transistor
     vmin = spec.supply.voltage * (1 - spec.supply.tolerance)
-    most = vmin - dev.vce_sat
+    if is_jfet(dev):  # a channel's triode edge is a bias matter; the rail is the bound
+        most, edge = vmin, "ground"
+    else:
+        most, edge = vmin - dev.vce_sat, f"VCE(sat) = {eng(dev.vce_sat, 'V', 3)}"
     if r.swing_vpp >= most:
         out.append(Conflict(
             "swing", f"{eng(r.swing_vpp, 'V', 3)}pp",
             f"no circuit on this supply can swing more than about {eng(most, 'V', 3)}pp: the "
             f"output "
             f"transistor moves at most between the supply ({eng(vmin, 'V', 3)} at its low "
-            f"tolerance) and VCE(sat) = {eng(dev.vce_sat, 'V', 3)}",
+            f"tolerance) and {edge}",
             "ask for less swing, or raise the supply voltage",
         ))
     out.extend(_noise_floor_conflicts(spec))
@@ -42,8 +46,8 @@ def _physics_conflicts(spec: Spec) -> list[Conflict]:
 
 def _noise_floor_conflicts(spec: Spec) -> list[Conflict]:
     """Noise requirements below the input transistor's physical floor (lownoise.py)."""
-    if not spec.require.wants_noise:
-        return []
+    if not spec.require.wants_noise or is_jfet(spec.transistor):
+        return []  # the two-generator floors are the bipolar transistor's
     from stagesynth.synthesis.lownoise import advice, unreachable
 
     out = []

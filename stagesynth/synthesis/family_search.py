@@ -26,6 +26,7 @@ import time
 
 import numpy as np
 
+from stagesynth.contracts.jfet import is_jfet
 from stagesynth.contracts.netlist import Design
 from stagesynth.contracts.spec import Spec
 from stagesynth.engine.analysis import (
@@ -209,7 +210,8 @@ def _synthesize_family(
                                           f"{_fmt_check(c)} in the closest design written",
                                           _advice(c.name, _number(c.value), spec, c.unit)))
         conflicts = [_thd_conflict(c, analysis) if c.name == "thd" else c for c in conflicts]
-    polarity = "PNP" if spec.transistor.polarity == "pnp" else "NPN"
+    polarity = {"pnp": "PNP", "npn": "NPN", "n": "N-channel JFET",
+                "p": "P-channel JFET"}[spec.transistor.polarity]
     from stagesynth.synthesis.leakage import capacitor_kinds
 
     kinds = capacitor_kinds(design, spec)
@@ -329,6 +331,10 @@ def _noise_notes(spec: Spec, analysis: Analysis) -> list[str]:
     """The noise rationale (dominant term, bias current against the optimum) when asked."""
     if not spec.require.wants_noise:
         return []
+    if is_jfet(spec.transistor):
+        from stagesynth.synthesis.jfetnoise import rationale as fet_rationale
+
+        return fet_rationale(spec, analysis)
     from stagesynth.synthesis.lownoise import rationale
 
     return rationale(spec, analysis)

@@ -19,18 +19,28 @@ from stagesynth.synthesis.topologies import (
     ef_ce,
     emitter_follower,
     fb_pair,
+    jfet_cascode,
+    jfet_cs,
+    jfet_cs_div,
+    jfet_cs_ef,
+    jfet_sf_boot,
 )
 
 FAMILIES = {
     family.NAME: family
     for family in (
         common_emitter,
+        jfet_cs,
         ce_feedback,
+        jfet_cs_div,
         emitter_follower,
+        jfet_sf_boot,
         ef_bootstrap,
         common_base,
         fb_pair,
+        jfet_cs_ef,
         ce_ef,
+        jfet_cascode,
         ef_ce,
         ce_ce,
     )

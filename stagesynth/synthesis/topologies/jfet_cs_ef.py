@@ -1,0 +1,167 @@
+"""Junction-FET common source driving a bipolar emitter follower (direct-coupled).
+
+Roles and reference designators:
+
+    R1  gate return RG                  C1  input coupling (in -> gate)
+    R2  drain resistor RD               C2  output coupling (follower emitter -> out)
+    R3  unbypassed source RS1           C3  source bypass across RS2
+    R4  bypassed source RS2             J1  junction FET, common source
+    R5  follower emitter resistor RE    Q1  bipolar emitter follower (base on the drain)
+
+The JFET gives the high input resistance and low input current noise; the follower's
+input resistance (hFE + 1)(re + RE ∥ RL) replaces the load on the drain, so RD and the gain
+can be large while the output impedance is the follower's, about re + RD/(hFE + 1) —
+the case where one device cannot meet gain, swing and output impedance together. The
+bipolar transistor is the spec's [companion], else "generic-npn" ("generic-pnp" for a P
+channel). Self-bias line and RS1/RS2 gain split as in jfet_cs.py.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from stagesynth.contracts.device import PRESETS
+from stagesynth.contracts.netlist import Design
+from stagesynth.contracts.spec import Spec
+from stagesynth.engine.jfetbias import gm_at, source_resistance_for, spread_points
+from stagesynth.quantities.units import format_quantity as eng
+from stagesynth.synthesis.topologies.base import Conflict, FirstCut
+from stagesynth.synthesis.topologies.ce_ef import VT25, follower_current
+from stagesynth.synthesis.topologies.jfet_common import (
+    bipolar,
+    companion_note,
+    drain_window,
+    gain_knob,
+    gate_resistors,
+    input_note,
+    jfet,
+    make_design,
+    nominal_unit,
+    place,
+    rails,
+    swing_amplitude,
+)
+from stagesynth.synthesis.topologies.jfet_cs import cs_notes, inverting_conflict
+
+NAME = "jfet_cs_ef"
+TITLE = "JFET common source driving a bipolar emitter follower"
+STAGES = 2
+DEVICES = "jfet+bjt"
+RESISTORS = ("R1", "R2", "R3", "R4", "R5")
+CAPACITORS = ("C1", "C2", "C3")
+GAIN_SPLIT = ("R3", "R4")
+OPTIONAL = frozenset({"R3"})
+
+ROLES = {
+    "R1": "gate return RG (sets the input resistance; carries the gate leakage)",
+    "R2": "drain resistor RD (also biases the follower's base)",
+    "R3": "source degeneration RS1 (unbypassed)",
+    "R4": "source bias RS2 (bypassed)",
+    "R5": "follower emitter resistor RE",
+    "C1": "input coupling",
+    "C2": "output coupling",
+    "C3": "source bypass",
+    "J1": "junction FET, common source (input stage)",
+    "Q1": "bipolar emitter follower (output buffer)",
+}
+FRACTIONS = np.array([0.03, 0.06, 0.12, 0.22, 0.38])
+POSITIONS = np.array([0.3, 0.6, 0.85])
+FOLLOWER_MULT = np.array([1.5, 3.0])
+
+
+def matching_bipolar(spec: Spec):
+    """The follower's transistor: the companion, or the generic preset of the JFET's sense
+    (an NPN follows an N-channel drain, a PNP a P-channel drain)."""
+    dev = bipolar(spec)
+    comp = getattr(spec, "companion", None)
+    if comp is None and jfet(spec).polarity == "p":
+        return PRESETS["generic-pnp"]
+    return dev
+
+
+def polarity_conflict(spec: Spec) -> list[Conflict]:
+    """A companion of the wrong sense cannot be direct-coupled to the drain."""
+    want = "npn" if jfet(spec).polarity == "n" else "pnp"
+    if matching_bipolar(spec).polarity == want:
+        return []
+    return [Conflict("companion", want, f"a {jfet(spec).polarity.upper()}-channel drain "
+                     f"direct-couples to an {want.upper()} transistor",
+                     f"give a {want.upper()} [companion]")]
+
+
+def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
+    """The netlist for `values` (by reference designator); N or P channel from the spec."""
+    rail_s, rail_d = rails(spec)
+    nodes = {
+        "R1": ("g1", rail_s),
+        "R2": (rail_d, "d1"),
+        "R3": ("s1", "x1"),
+        "R4": ("x1", rail_s),
+        "R5": ("e2", rail_s),
+        "C1": ("in", "g1"),
+        "C2": ("e2", "out"),
+        "C3": ("x1", rail_s),
+    }
+    design = make_design(spec, NAME, nodes, values, {"J1": ("d1", "g1", "s1")}, ROLES, title,
+                         bjts={"Q1": (rail_d, "d1", "e2")})
+    devices = dict(design.devices)
+    devices["Q"] = matching_bipolar(spec)
+    from dataclasses import replace
+
+    return replace(design, devices=devices)
+
+
+def first_cut(spec: Spec) -> FirstCut:
+    """Self-bias lines and RD in the corner units' window (the follower's high input
+    resistance is the drain's load), then the follower's current for the swing and z_out
+    at the lowest drain voltage (the high unit's)."""
+    dev = jfet(spec)
+    q = matching_bipolar(spec)
+    idss_n, vp_n = nominal_unit(dev)
+    vcc = spec.supply.voltage
+    rg = gate_resistors(spec)
+    F, RG, P, M = (a.ravel() for a in np.meshgrid(FRACTIONS, rg, POSITIONS, FOLLOWER_MULT,
+                                                   indexing="ij"))
+    id_n = F * idss_n
+    rs = source_resistance_for(idss_n, vp_n, id_n)
+    pts = spread_points(dev, spec.require.ambient, rs, 0.0, RG)
+    amp = swing_amplitude(spec)
+    # the follower needs its emitter a peak above its rail: one more A of headroom
+    rd_lo, rd_hi = drain_window(spec, pts, rs, ac_load=1e9, headroom=amp + 0.3 * amp)
+    rd = place(rd_lo, rd_hi, P)
+    vd_high_unit = vcc - pts.id_high * rd  # N frame: the drain's lowest point
+    ve2 = np.maximum(vd_high_unit - q.vbe, 0.05)
+    ie2 = follower_current(spec, ve2) * M
+    re = ve2 / ie2
+    ok = (rd_hi > rd_lo) & (ve2 > 1.2 * amp) & (pts.id_low > 1.5e-6)
+    beta = q.hfe_nominal
+    rl = spec.load.resistance
+    rin2 = (beta + 1.0) * (VT25 / ie2 + re * rl / (re + rl))
+    rac = rd * rin2 / (rd + rin2)
+    knob = gain_knob(spec.require.gain, gm_at(idss_n, vp_n, id_n), rac, 1.0, rs)
+    values = {"R1": RG, "R2": rd, "R3": np.zeros_like(rs), "R4": rs, "R5": re}
+    keep = ok if np.any(ok) else np.isfinite(rd) & (rd > 0) & np.isfinite(re)
+    info = {"id_nominal": id_n, "ie2": ie2}
+    return FirstCut(values={k: v[keep] for k, v in values.items()}, knob=knob[keep],
+                    info={k: v[keep] for k, v in info.items()})
+
+
+def precheck(spec: Spec) -> list[Conflict]:
+    """The common source inverts; the companion must match the channel's sense."""
+    return [*inverting_conflict(spec, "a common source followed by a follower"),
+            *polarity_conflict(spec)]
+
+
+def describe(spec: Spec, design: Design, analysis) -> list[str]:
+    """Plain-language reasons for the two stages (for the report)."""
+    v = design.values()
+    q = analysis.nominal.transistors["Q1"]
+    return [
+        *cs_notes(spec, design, analysis, v.get("R3", 0.0), v.get("R4", 0.0), v["R2"]),
+        f"Follower Q1: IE ≈ {eng(q.ic, 'A', 3)} through RE = {eng(v['R5'], 'Ω', 3)}; the drain "
+        f"sees its input resistance instead of the {eng(spec.load.resistance, 'Ω', 3)} load, "
+        f"and the output impedance is about re + RD/(hFE + 1) (analysis: "
+        f"{eng(analysis.z_out, 'Ω', 3)}).",
+        companion_note(spec),
+        input_note(spec, analysis, v["R1"], False),
+    ]
