@@ -30,6 +30,7 @@ from stagesynth.quantities.eseries import nearest, neighbours
 from stagesynth.quantities.units import format_quantity as eng
 
 DOMINANT_SHARE = 0.8  # of the corner's angular frequency, given to the dominant capacitor
+MINOR_SHARE = 0.02  # of the corner, for a capacitor that must act well below it
 F_LOW_MARGIN = 0.97  # the worst-case corner must land at or below this fraction of the target
 
 
@@ -101,6 +102,7 @@ def size_capacitors(
     z_out_max: float | None = None,
     capacitor_max: float = math.inf,
     limits: dict[str, float] | None = None,
+    minor: tuple[str, ...] = (),
 ) -> CapSizing:
     """Capacitor values (from `series`) so that f_low holds with every capacitor at -tolerance,
     at nominal and at every corner of `env`.
@@ -109,7 +111,8 @@ def size_capacitors(
     their reactance at midband keeps the output impedance within it. No capacitor exceeds
     `capacitor_max`, nor its own entry in `limits` (e.g. a film-sized ceiling where an
     electrolytic's leakage would move the bias): a capacitor held at its ceiling leaves
-    its share of the corner to the others.
+    its share of the corner to the others. The capacitors named in `minor` (a bootstrap,
+    whose fading near the corner would make the response peak) take only MINOR_SHARE.
     """
     circuit = compile_design(design)
     conds = condition_arrays(circuit, corner_conditions(design, env))  # nominal + corners
@@ -121,7 +124,7 @@ def size_capacitors(
                    source_capacitance=design.source_capacitance, band=env.band, corners="none",
                    response=False)
     res = shorted_resistances(design, circuit, fig.nominal.G[0])
-    share = _shares(res)
+    share = _shares(res, minor)
     target = f_low * F_LOW_MARGIN
     cont = np.array([1.0 / (2 * math.pi * target * share[ref] * res[ref]) for ref in refs])
     ceiling = np.array([min(capacitor_max, (limits or {}).get(ref, math.inf)) for ref in refs])
@@ -224,10 +227,17 @@ def _at_most(limit: float, series: str) -> float:
     return max(below) if below else limit
 
 
-def _shares(res: dict[str, float]) -> dict[str, float]:
-    """Dominant share to the capacitor with the smallest resistance, the rest split evenly."""
-    if len(res) == 1:
-        return {ref: 1.0 for ref in res}
-    dominant = min(res, key=res.get)
-    rest = (1.0 - DOMINANT_SHARE) / (len(res) - 1)
-    return {ref: (DOMINANT_SHARE if ref == dominant else rest) for ref in res}
+def _shares(res: dict[str, float], minor: tuple[str, ...] = ()) -> dict[str, float]:
+    """Dominant share to the capacitor with the smallest resistance, the rest split evenly;
+    the `minor` ones take MINOR_SHARE each off the top."""
+    small = {ref: MINOR_SHARE for ref in res if ref in minor}
+    main = {ref: r for ref, r in res.items() if ref not in small}
+    if not main:
+        return {ref: 1.0 / len(res) for ref in res}
+    whole = 1.0 - MINOR_SHARE * len(small)
+    if len(main) == 1:
+        return {**small, **{ref: whole for ref in main}}
+    dominant = min(main, key=main.get)
+    rest = whole * (1.0 - DOMINANT_SHARE) / (len(main) - 1)
+    return {**small, **{ref: (whole * DOMINANT_SHARE if ref == dominant else rest)
+                        for ref in main}}

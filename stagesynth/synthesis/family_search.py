@@ -165,7 +165,8 @@ def _synthesize_family(
                                     series=spec.parts.capacitors,
                                     tolerance=spec.parts.capacitor_tolerance,
                                     z_out_max=spec.require.z_out,
-                                    capacitor_max=spec.parts.capacitor_max, limits=limits)
+                                    capacitor_max=spec.parts.capacitor_max, limits=limits,
+                                    minor=getattr(family, "MINOR_CAPACITORS", ()))
             more = {k: v for k, v in leakage_limits(sized.design, spec).items()
                     if k not in limits}
             if not more:

@@ -58,7 +58,11 @@ def shorted_resistances(circuit, g: np.ndarray, source_resistance: float,
         if b < n:
             rhs[b] -= 1.0
         y += np.eye(n)[None] * 1e-12
-        x = np.linalg.solve(y, np.broadcast_to(rhs[:, None], (k, n, 1)))[..., 0]
+        try:
+            x = np.linalg.solve(y, np.broadcast_to(rhs[:, None], (k, n, 1)))[..., 0]
+        except np.linalg.LinAlgError:  # megohm resistors beside the shorts: lift the floor
+            y += np.eye(n)[None] * (1e-15 * big)
+            x = np.linalg.solve(y, np.broadcast_to(rhs[:, None], (k, n, 1)))[..., 0]
         va = x[:, a] if a < n else 0.0
         vb = x[:, b] if b < n else 0.0
         out[:, j] = np.abs(va - vb)

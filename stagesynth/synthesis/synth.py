@@ -9,6 +9,7 @@ design and writes why each other family won or lost into the rationale.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 from stagesynth.contracts.netlist import Design
 from stagesynth.contracts.spec import Spec
@@ -21,7 +22,9 @@ from stagesynth.synthesis.conflicts import (  # noqa: F401 (finishing.py reads t
     _fmt_check,
     _physics_conflicts,
 )
+from stagesynth.synthesis.devices import family_spec, missing_device
 from stagesynth.synthesis.family_search import _synthesize_family
+from stagesynth.synthesis.fetchoice import fet_notes
 from stagesynth.synthesis.outcome import FamilyReport, SynthesisResult
 from stagesynth.synthesis.practical import (
     CAP_HALVING_WORTH,
@@ -51,7 +54,12 @@ def synthesize(
         if circuit not in FAMILIES:
             raise StageError(f"{circuit!r} is not a circuit stagesynth knows",
                              key="--circuit", accepted=", ".join(FAMILIES))
-        result = _remedied(spec, FAMILIES[circuit], prefer)
+        fspec = family_spec(spec, FAMILIES[circuit])
+        if fspec is None:
+            raise StageError(f"circuit {circuit!r} cannot be built from this spec's devices",
+                             file=spec.path or None, key="--circuit",
+                             accepted=missing_device(spec, FAMILIES[circuit]))
+        result = _remedied(fspec, FAMILIES[circuit], prefer, spec)
         report = _family_report(FAMILIES[circuit], result)
         note = f"Circuit: {FAMILIES[circuit].TITLE}, as asked (--circuit {circuit})."
         return _with_choice(result, (report,), [note])
@@ -60,7 +68,7 @@ def synthesize(
     empty: list[str] = []
     impossible = _physics_conflicts(spec)  # limits no circuit on this supply escapes
     met_stages: int | None = None
-    for name, family in _search_order(spec):
+    for name, family, fspec in _search_order(spec):
         if met_stages is not None and met_stages < family.STAGES:
             break  # more transistors than a circuit that already meets
         if impossible and results:
@@ -68,14 +76,14 @@ def synthesize(
                                         tuple(c.name for c in impossible),
                                         "; ".join(c.best for c in impossible)))
             continue
-        blocked = family.precheck(spec)
+        blocked = family.precheck(fspec)
         if blocked:
             reports.append(FamilyReport(name, family.TITLE, family.STAGES, False, -math.inf,
                                         tuple(c.name for c in blocked),
                                         "; ".join(c.best for c in blocked)))
             continue
         try:
-            res = _remedied(spec, family, prefer)
+            res = _remedied(fspec, family, prefer, spec)
         except NoDesignError as exc:
             empty.append(exc.message)
             reports.append(FamilyReport(name, family.TITLE, family.STAGES, False, -math.inf,
@@ -93,35 +101,43 @@ def synthesize(
                                                       -practicality(pair[1])))
         else:
             rep, res = max(meeting, key=lambda pair: practicality(pair[1]))
-        return _with_choice(res, tuple(reports), _choice_notes(rep, reports, meeting))
+        return _with_choice(res, tuple(reports), _choice_notes(rep, reports, meeting)
+                            + fet_notes(spec, rep, results))
     if not results:  # every family blocked outright: show the first family's best try
-        family = next(iter(FAMILIES.values()))
+        _, family, fspec = _search_order(spec)[0]
         try:
-            res = _synthesize_family(spec, family, prefer)
+            res = replace(_synthesize_family(fspec, family, prefer), spec=spec)
         except NoDesignError as exc:
             why = "; ".join(dict.fromkeys([*empty, exc.message]))
             raise NoDesignError(f"no circuit family has a candidate: {why}") from None
         return _with_choice(res, tuple(reports), _choice_notes(None, reports))
     rep, res = min(results, key=lambda pair: (len(pair[0].failed), -pair[0].worst_margin))
-    return _with_choice(res, tuple(reports), _choice_notes(None, reports))
+    return _with_choice(res, tuple(reports), _choice_notes(None, reports)
+                        + fet_notes(spec, None, results))
 
 
-def _search_order(spec: Spec) -> list[tuple[str, object]]:
-    """The registry's order with the families a rule of thumb calls unlikely moved to the
-    back (stable, so the order of simplicity holds within each group)."""
-    def hint(family) -> bool:
+def _search_order(spec: Spec) -> list[tuple[str, object, Spec]]:
+    """The registry's order, held to the families the spec's devices can build (each with
+    the spec it is searched with, devices.py), with the families a rule of thumb calls
+    unlikely moved to the back (stable, so the order of simplicity holds in each group)."""
+    def hint(family, fspec: Spec) -> bool:
         check = getattr(family, "unlikely", None)
-        return bool(check(spec)) if check is not None else False
+        return bool(check(fspec)) if check is not None else False
 
-    items = list(FAMILIES.items())
-    return sorted(items, key=lambda item: hint(item[1]))
-def _remedied(spec: Spec, family, prefer: str) -> SynthesisResult:
-    """One family's search, then the remedies of finishing.py (supply filter, output
-    damping) where the spec asks for what the bare family misses."""
+    items = [(name, family, fspec) for name, family in FAMILIES.items()
+             if (fspec := family_spec(spec, family)) is not None]
+    return sorted(items, key=lambda item: hint(item[1], item[2]))
+
+
+def _remedied(fspec: Spec, family, prefer: str, spec: Spec | None = None) -> SynthesisResult:
+    """One family's search (with the spec `fspec` devices.py gives it), then the remedies of
+    finishing.py (supply filter, output damping) where the spec asks for what the bare
+    family misses; the result carries the user's `spec`."""
     from stagesynth.synthesis.finishing import finish_family
 
-    return finish_family(spec, family, _synthesize_family(spec, family, prefer), prefer,
-                         _synthesize_family)
+    res = finish_family(fspec, family, _synthesize_family(fspec, family, prefer), prefer,
+                        _synthesize_family)
+    return res if spec is None or spec is fspec else replace(res, spec=spec)
 
 
 def _family_report(family, result: SynthesisResult) -> FamilyReport:
@@ -171,10 +187,22 @@ def _choice_notes(chosen: FamilyReport | None, reports: list[FamilyReport],
     else:
         head = (f"Circuit choice: {chosen.title}, the only circuit with {chosen.stages} "
                 f"transistor(s) that meets every requirement (families searched in the order "
-                f"{', '.join(FAMILIES)}, rules of thumb moving unlikely ones to the back; "
+                f"{', '.join(_buildable(reports))}, rules of thumb moving unlikely ones to "
+                f"the back; "
                 f"circuits with more transistors are searched only when none with fewer "
                 f"meets).{why}")
     return [head, *lines]
+
+
+def _buildable(reports: list[FamilyReport]) -> list[str]:
+    """The registry's names of the families the searched spec's devices can build (the
+    bipolar ones alone for a bipolar spec without a junction-FET companion)."""
+    from stagesynth.synthesis.devices import needs
+
+    fet = any(needs(FAMILIES[r.name]) != "bjt" for r in reports)
+    bjt = any(needs(FAMILIES[r.name]) == "bjt" for r in reports)
+    return [n for n, f in FAMILIES.items() if (needs(f) == "bjt" and bjt)
+            or (needs(f) != "bjt" and fet)]
 
 
 def _with_choice(result: SynthesisResult, reports: tuple[FamilyReport, ...],

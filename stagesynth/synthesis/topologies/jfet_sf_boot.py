@@ -45,6 +45,7 @@ STAGES = 1
 DEVICES = "jfet"
 RESISTORS = ("R1", "R2", "R3", "R4")
 CAPACITORS = ("C1", "C2", "C3")
+MINOR_CAPACITORS = ("C1", "C3")  # bootstrap and input hold well below f_low (else it peaks)
 GAIN_SPLIT = None
 OPTIONAL: frozenset[str] = frozenset()
 
@@ -58,9 +59,9 @@ ROLES = {
     "C3": "bootstrap: drives the divider midpoint with the source signal",
     "J1": "source follower (drain on the supply rail)",
 }
-VG_FRACTIONS = np.array([0.3, 0.42, 0.55])
-ID_FRACTIONS = np.array([0.06, 0.15, 0.3, 0.5, 0.75])  # of the low unit's IDSS (hot)
-DIVIDER_SHARE = np.array([4.0, 12.0])  # divider Thevenin resistance over RS
+VG_FRACTIONS = np.array([0.3, 0.4, 0.5, 0.6])
+ID_FRACTIONS = np.array([0.03, 0.06, 0.1, 0.16, 0.25, 0.4, 0.6])  # of the low unit's IDSS (hot)
+DIVIDER_SHARE = np.array([3.0, 8.0, 20.0])  # divider Thevenin resistance over RS
 
 
 def build(spec: Spec, values: dict[str, float], *, title: str = "") -> Design:
