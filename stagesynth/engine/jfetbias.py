@@ -138,3 +138,90 @@ def transfer_curves(device: Jfet, ambient: tuple[float, float], points: int = 20
     vgs = np.linspace(float(np.min(vp)), 0.0, points)
     return {"vgs": vgs, "i_d": transfer(idss[..., None], vp[..., None], vgs),
             "idss": idss, "vp": vp}
+
+
+@dataclass(frozen=True)
+class UnitPoint:
+    """One corner unit of one junction FET at one ambient: its law and where it sits."""
+
+    label: str
+    unit: str  # "low" (IDSS min, VP nearest zero) or "high"
+    ambient: float
+    idss: float  # at its junction temperature
+    vp: float  # N frame, negative
+    vgs: float  # N frame
+    i_d: float
+    vds: float
+
+    @property
+    def edge(self) -> float:
+        """VGS - VP: the VDS below which the channel leaves saturation (triode edge)."""
+        return self.vgs - self.vp
+
+    @property
+    def headroom(self) -> float:
+        """VDS above the triode edge at the operating point."""
+        return self.vds - self.edge
+
+
+@dataclass(frozen=True)
+class BiasView:
+    """What the report draws for one junction FET: both corner units' transfer curves at
+    the ambient extremes, their operating points (the engine's exact DC solution at the
+    low-supply corners) and the bias line through each ambient's pair of points."""
+
+    ref: str
+    points: tuple[UnitPoint, ...]
+    vgs: np.ndarray  # sweep from the farthest VP to 0
+    curves: np.ndarray  # (len(points), len(vgs)) transfer curves, ID
+
+    def line(self, ambient: float) -> tuple[float, float] | None:
+        """(VG_eff, RS_eff) of the bias line VGS = VG_eff - ID*RS_eff through the low and
+        the high unit's points at `ambient` (None without both points)."""
+        pair = [p for p in self.points if p.ambient == ambient]
+        lo = next((p for p in pair if p.unit == "low"), None)
+        hi = next((p for p in pair if p.unit == "high"), None)
+        if lo is None or hi is None or abs(hi.i_d - lo.i_d) < 1e-15:
+            return None
+        rs = -(hi.vgs - lo.vgs) / (hi.i_d - lo.i_d)
+        return lo.vgs + lo.i_d * rs, rs
+
+    def line_current(self, ambient: float) -> np.ndarray:
+        """ID along the bias line at `ambient` over the `vgs` sweep (nan without a line)."""
+        line = self.line(ambient)
+        if line is None:
+            return np.full_like(self.vgs, np.nan)
+        vg, rs = line
+        return (vg - self.vgs) / rs
+
+
+def bias_views(analysis) -> tuple[BiasView, ...]:
+    """One BiasView per junction FET of an analysed design (empty for a bipolar design)."""
+    design = analysis.design
+    views = []
+    corners = [c for c in analysis.corners if c.converged]
+    if not corners:
+        return ()
+    v_low = min(c.condition.supply for c in corners)
+    for part in design.jfets:
+        pts = []
+        for unit, u in (("low", 0.0), ("high", 1.0)):
+            for amb in sorted({c.condition.ambient for c in corners}):
+                match = [c for c in corners if c.condition.ambient == amb
+                         and abs(c.condition.hfe.get(part.device, -1.0) - u) < 1e-9]
+                if not match:
+                    continue
+                best = min(match, key=lambda c: (abs(c.condition.supply - v_low),
+                                                 c.condition.label))
+                st = best.transistors[part.ref]
+                if st.idss is None or st.vp is None:
+                    continue
+                vp_n = -abs(st.vp)
+                pts.append(UnitPoint(best.condition.label, unit, amb, st.idss, vp_n, st.vgs,
+                                     st.ic, st.vce))
+        if not pts:
+            continue
+        vgs = np.linspace(min(p.vp for p in pts), 0.0, 240)
+        curves = np.array([transfer(p.idss, p.vp, vgs) for p in pts])
+        views.append(BiasView(part.ref, tuple(pts), vgs, curves))
+    return tuple(views)

@@ -23,7 +23,7 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
 PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg", "ripple.svg")
 BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
                 "stage.s2p", "histograms.svg", "pulse.svg", "noise.svg",
-                "distortion.svg")
+                "distortion.svg", "jfetbias.svg")
 
 
 def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
@@ -90,7 +90,7 @@ def write_bundle(
     names = list(BUNDLE_FILES)
     if rob.yield_estimate is not None and spec is not None:
         from stagesynth.report.histograms import histogram_figure
-        from stagesynth.report.plots import figure_svg
+        from stagesynth.report.plotstyle import figure_svg
 
         contents["histograms.svg"] = figure_svg(histogram_figure(rob.yield_estimate, spec))
         svgs["histograms"] = contents["histograms.svg"].decode("utf-8")
@@ -110,22 +110,42 @@ def write_bundle(
     distortion = _distortion(analysis, spec)
     if distortion is not None:
         from stagesynth.report.distortionview import distortion_figure
-        from stagesynth.report.plots import figure_svg
+        from stagesynth.report.plotstyle import figure_svg
 
         contents["distortion.svg"] = figure_svg(distortion_figure(distortion[0]))
         svgs["distortion"] = contents["distortion.svg"].decode("utf-8")
     else:
         names.remove("distortion.svg")
+    bias_views = _jfet_bias(analysis)
+    if bias_views:  # a design holding a junction FET: the corner units' transfer curves
+        from stagesynth.report.jfetbias import bias_figure
+        from stagesynth.report.plotstyle import figure_svg
+
+        contents["jfetbias.svg"] = figure_svg(bias_figure(bias_views))
+        svgs["jfetbias"] = contents["jfetbias.svg"].decode("utf-8")
+    else:
+        names.remove("jfetbias.svg")
     contents["schematic.svg"] = svgs["schematic"].encode("utf-8")
     contents["bom.csv"] = bom_csv(design, analysis, spec, rows=rows).encode("utf-8")
     contents["stage.s2p"] = stage_touchstone(design, analysis).encode("latin-1")
     contents["report.md"] = report_markdown(design, analysis, verdict, spec, notes, bom=rows,
                                             pz=pz, robustness=rob, pulse=pulse,
-                                            distortion=distortion).encode("utf-8")
+                                            distortion=distortion,
+                                            jfet_bias=bias_views).encode("utf-8")
     contents["report.html"] = report_html(design, analysis, verdict, spec, notes, svgs=svgs,
                                           bom=rows, pz=pz, robustness=rob,
-                                          pulse=pulse, distortion=distortion).encode("utf-8")
+                                          pulse=pulse, distortion=distortion,
+                                          jfet_bias=bias_views).encode("utf-8")
     return [out.write_bytes(name, contents[name]) for name in names]
+
+
+def _jfet_bias(analysis: Analysis):
+    """The engine's bias views of the design's junction FETs (empty for a bipolar design)."""
+    if not analysis.design.jfets:
+        return ()
+    from stagesynth.report.jfetbias import views
+
+    return views(analysis)
 
 
 def _distortion(analysis: Analysis, spec: Spec | None):

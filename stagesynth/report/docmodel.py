@@ -8,7 +8,7 @@ from dataclasses import dataclass, field
 FIGURE_FILES = {"schematic": "schematic.svg", "bode": "bode.svg", "impedance": "impedance.svg",
                 "histograms": "histograms.svg", "pulse": "pulse.svg", "noise": "noise.svg",
                 "ripple": "ripple.svg",
-                "distortion": "distortion.svg"}
+                "distortion": "distortion.svg", "jfetbias": "jfetbias.svg"}
 
 
 @dataclass(frozen=True)

@@ -70,8 +70,10 @@ def build_document(
     robustness=None,
     pulse=None,
     distortion=None,
+    jfet_bias=None,
 ) -> Document:
-    """The report's content, independent of the output format."""
+    """The report's content, independent of the output format. `jfet_bias`: the engine's
+    bias views of the junction FETs (computed here for a design holding one when None)."""
     from stagesynth import __version__
     from stagesynth.engine.polezero import corner_estimates, pole_zero_map
     from stagesynth.report.bom import bom_rows
@@ -145,6 +147,12 @@ def build_document(
         "DC node voltages (to ground):",
         volts,
     )))
+    if design.jfets:  # the corner units' transfer curves with the bias line
+        from stagesynth.report.jfetbias import bias_section, views
+
+        jfet_bias = jfet_bias if jfet_bias else views(analysis)
+        if jfet_bias:
+            sections.append(bias_section(jfet_bias))
     if pulse is not None:  # read before the Bode plot by sensor and ultrasonic users
         from stagesynth.report.pulseview import pulse_section
 
@@ -231,7 +239,19 @@ def figure_svgs(design: Design, analysis: Analysis, spec: Spec | None = None) ->
         "impedance": figure_svg(impedance_figure(analysis, spec)).decode("utf-8"),
         "noise": figure_svg(noise_plot(analysis, spec)).decode("utf-8"),
         "ripple": figure_svg(ripple_figure(analysis, spec)).decode("utf-8"),
+        **_jfet_svg(analysis),
     }
+
+
+def _jfet_svg(analysis: Analysis) -> dict[str, str]:
+    """The bias-over-spread figure for a design holding a junction FET (else nothing)."""
+    if not analysis.design.jfets:
+        return {}
+    from stagesynth.report.jfetbias import bias_figure, views
+    from stagesynth.report.plots import figure_svg
+
+    found = views(analysis)
+    return {"jfetbias": figure_svg(bias_figure(found)).decode("utf-8")} if found else {}
 
 
 def report_html(
