@@ -44,7 +44,9 @@ def bias_figure(views_: tuple[BiasView, ...]) -> Figure:
         axes = fig.subplots(len(views_), 1, squeeze=False)[:, 0]
         for ax, v in zip(axes, views_, strict=True):
             ambients = sorted({p.ambient for p in v.points})
-            top = float(np.max(v.curves)) * 1e3
+            # the operating points, not IDSS, set the scale: the region the bias uses
+            top = min(float(np.max(v.curves)),
+                      2.5 * max(p.i_d for p in v.points)) * 1e3
             for k, p in enumerate(v.points):
                 color = BLUE if p.unit == "low" else ORANGE
                 dash = "-" if p.ambient == ambients[0] else (0, (5, 2.5))
@@ -65,7 +67,9 @@ def bias_figure(views_: tuple[BiasView, ...]) -> Figure:
                 ax.plot(v.vgs[keep], ids[keep] * 1e3, color=GREY, linestyle=dash,
                         linewidth=1.2, label=f"bias line at {amb:g} °C: VGS = "
                         f"{fmt(vg, 'V')} − ID·{fmt(rs, 'Ω')}")
-            ax.set_xlim(float(v.vgs[0]), 0.0)
+            lit = v.curves * 1e3 <= 1.08 * top  # where the curves are inside the frame
+            lo = float(np.min(v.vgs[np.any(lit, axis=0)])) if np.any(lit) else float(v.vgs[0])
+            ax.set_xlim(lo, 0.0)
             ax.set_ylim(0.0, 1.08 * top)
             ax.set_xlabel("VGS (N-channel sense), V")
             ax.set_ylabel("ID, mA")

@@ -114,8 +114,9 @@ def capacitor_estimate(fig, circuit, f_low: float, capacitor_max: float,
                                load_resistance)
     cap = np.full((k, ncap), capacitor_max)
     for _ in range(3):
-        leaky = (c > FILM_MAX) & (leakage_current(c, rated_voltage(volts)) * per_amp
-                                  > BIAS_SHIFT_MAX)
+        with np.errstate(invalid="ignore"):  # an unbounded size times no shift: not leaky
+            leaky = (c > FILM_MAX) & (leakage_current(c, rated_voltage(volts)) * per_amp
+                                      > BIAS_SHIFT_MAX)
         cap = np.where(leaky, np.minimum(cap, FILM_MAX), cap)
         held = c >= cap
         used = np.sum(np.where(held, 1.0 / (res * cap), 0.0), axis=1)
