@@ -335,9 +335,9 @@ def write_report(result_or_design: Result | Assessment | Design | str | Path,
 
 def report_files() -> list[str]:
     """Names of the report files write_report may write (besides design.json)."""
-    from stagesynth.report.bundle import BUNDLE_FILES
+    from stagesynth.report.bundle import BUNDLE_FILES, JFET_FILES
 
-    return list(BUNDLE_FILES)
+    return list(BUNDLE_FILES) + list(JFET_FILES)
 
 
 def _recorded_limit(value, default: float) -> float:

@@ -23,7 +23,8 @@ if TYPE_CHECKING:  # pragma: no cover - typing only
 PLOT_FILES = ("bode.svg", "bode.png", "impedance.svg", "ripple.svg")
 BUNDLE_FILES = ("report.md", "report.html", *PLOT_FILES, "schematic.svg", "bom.csv",
                 "stage.s2p", "histograms.svg", "pulse.svg", "noise.svg",
-                "distortion.svg", "jfetbias.svg")
+                "distortion.svg")
+JFET_FILES = ("jfetbias.svg",)  # written besides BUNDLE_FILES for a design holding a JFET
 
 
 def _plots(analysis: Analysis, spec: Spec | None) -> dict[str, bytes]:
@@ -74,7 +75,7 @@ def write_bundle(
     from stagesynth.report.document import report_html, report_markdown, schematic_svg
     from stagesynth.report.touchstone import stage_touchstone
 
-    out.check(list(BUNDLE_FILES))
+    out.check(list(BUNDLE_FILES) + (list(JFET_FILES) if design.jfets else []))
     contents: dict[str, bytes] = _plots(analysis, spec)
     svgs = {
         "schematic": schematic_svg(design, analysis),
@@ -123,8 +124,7 @@ def write_bundle(
 
         contents["jfetbias.svg"] = figure_svg(bias_figure(bias_views))
         svgs["jfetbias"] = contents["jfetbias.svg"].decode("utf-8")
-    else:
-        names.remove("jfetbias.svg")
+        names.append("jfetbias.svg")
     contents["schematic.svg"] = svgs["schematic"].encode("utf-8")
     contents["bom.csv"] = bom_csv(design, analysis, spec, rows=rows).encode("utf-8")
     contents["stage.s2p"] = stage_touchstone(design, analysis).encode("latin-1")

@@ -4,7 +4,8 @@ Common practice: an aluminium electrolytic leaks about 0.01·C·V µA (C in µF,
 voltage in volts), at least 3 µA. That current flows through the capacitor's place in
 the circuit at DC, where the capacitor is otherwise open: injected across its two
 nodes, it moves the operating point. A capacitor whose leakage would move any
-transistor's collector current by more than BIAS_SHIFT_MAX must be film or ceramic; from
+transistor's collector (or a junction FET's drain) current by more than BIAS_SHIFT_MAX
+must be film or ceramic; from
 FILM_MAX up those get large and costly (common practice), so the synthesizer keeps such
 capacitors at or below FILM_MAX and lets the others carry the low corner.
 
@@ -53,7 +54,7 @@ def shift_per_ampere(circuit, g: np.ndarray, gm: np.ndarray, r_o: np.ndarray,
     `gm`, `r_o`, `ic` (K, nQ) polarity-normalized)."""
     k, n = g.shape[0], circuit.n
     caps = circuit.capacitors
-    if not caps or not circuit.bjts:
+    if not caps or not circuit.nq:
         return np.zeros((k, len(caps)))
     y = np.array(g, dtype=float, copy=True)
     o, i = circuit.output, circuit.input
@@ -71,7 +72,9 @@ def shift_per_ampere(circuit, g: np.ndarray, gm: np.ndarray, r_o: np.ndarray,
     dv = np.linalg.solve(y, np.broadcast_to(rhs, (k, n, len(caps))))
     full = np.concatenate([dv, np.zeros((k, 2, len(caps)))], axis=1)  # ground, supply fixed
     worst = np.zeros((k, len(caps)))
-    for q, t in enumerate(circuit.bjts):
+    # a junction FET the same way: its drain current moves by gm·(ΔVg − ΔVs) + ΔVds/ro
+    # (CompiledJfet names its terminals c, bi, e too)
+    for q, t in enumerate(circuit.transistors):
         d_ic = (gm[:, q, None] * (full[:, t.bi] - full[:, t.e])
                 + (full[:, t.c] - full[:, t.e]) / r_o[:, q, None])
         rel = np.abs(d_ic) / np.maximum(np.abs(ic[:, q, None]), 1e-12)
