@@ -16,6 +16,10 @@ A family is a module with these attributes (see common_emitter.py for one):
                       family to the back of the search (never refuse it)
     OPTIONAL          resistors that may be left out: a value at FLOOR means
                       "no part", and the finished netlist shorts it
+    DEVICES           optional: "bjt" (default), "jfet" or "jfet+bjt": what the family
+                      needs from the spec's [transistor]/[companion] (synthesis/devices.py)
+    MINOR_CAPACITORS  optional: capacitors the low corner's sizing keeps well below f_low
+                      (a bootstrap that fades near the corner makes the response peak)
     build(spec, values) -> Design
     first_cut(spec) -> FirstCut
     precheck(spec) -> list[Conflict]     requirements the family can never meet
