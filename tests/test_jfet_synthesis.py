@@ -1,10 +1,10 @@
 """Synthesized junction-FET designs for sensor specs, judged by the independent reference.
 
-Held-out-style specs of our own (capacitive sensors of 470 pF to 4.7 nF, input resistances
-of 20 MOhm and more, IDSS spreads of 5:1, ambient to 85 degC): each written design must
-meet its spec at nominal and every corner when tests/independent/refjfetac.py (written
-from the contract alone) analyses the design file, and both corner units must sit in
-saturation there. Kept to three syntheses (synthesis is slow).
+Held-out-style specs of our own (capacitive sensors of 470 pF to 4.7 nF, N and P channel,
+input resistances of 10 MOhm and more, IDSS spreads of 5:1, ambient to 85 degC): each
+written design must meet its spec at nominal and every corner when
+tests/independent/refjfetac.py (written from the contract alone) analyses the design file,
+and both corner units must sit in saturation there. Kept to four syntheses (synthesis is slow).
 """
 
 from __future__ import annotations
@@ -40,6 +40,16 @@ SPECS = {
                     "swing": "2 Vpp", "ambient": ["0 °C", "85 °C"]},
         "transistor": {"kind": "jfet", "preset": "generic-njfet-lownoise"},
         "parts": {"resistor_max": "100 MΩ"},
+    },
+    # the P-channel mirror: a 1 nF probe on a 9 V rail, gate resistor within 10 MOhm
+    "p_channel_follower": {
+        "supply": {"voltage": "9 V", "tolerance": "5 %"},
+        "source": {"resistance": "1 kΩ", "capacitance": "1 nF"},
+        "load": {"resistance": "100 kΩ"},
+        "require": {"gain": "-0.5 dB", "f_low": "20 Hz", "f_high": "20 kHz", "z_in": "10 MΩ",
+                    "swing": "1 Vpp", "ambient": ["0 °C", "85 °C"], "inverting": "no"},
+        "transistor": {"kind": "jfet", "preset": "generic-pjfet"},
+        "parts": {"resistor_max": "10 MΩ"},
     },
     # a 4.7 nF hydrophone element with a bipolar [transistor] and a JFET [companion]: the FET
     # families compete with the bipolar ones; 40 MOhm at 1 Hz is a junction FET's job

@@ -62,9 +62,13 @@ def comparison(spec: Spec, ic: float) -> str:
     text = (f"A bipolar input at IC ≈ {eng(ic, 'A', 2)} draws IB = IC/hFE_min ≈ "
             f"{eng(ib, 'A', 2)}")
     if r_need > 0:
+        drop = ib * r_need
         text += (f"; the input must present about {eng(r_need, 'Ω', 2)}, through which that "
-                 f"current would drop {eng(ib * r_need, 'V', 2)} (so a bipolar input gets there "
-                 "only by bootstrapping)")
+                 f"current would drop {eng(drop, 'V', 2)}")
+        if drop > 0.1 * spec.supply.voltage:
+            text += " (so a bipolar input gets there only by bootstrapping)"
+        else:
+            text += " (no obstacle at this input resistance)"
     if z_src > 0:
         text += (f", and its shot noise √(2q·IB) ≈ {eng(in_bjt, 'A/√Hz', 2)} in the source "
                  f"impedance ({eng(z_src, 'Ω', 2)} at {eng(f, 'Hz', 3)}) is "
