@@ -11,7 +11,6 @@ from hypothesis import strategies as st
 from stagesynth.quantities.errors import StageError
 from stagesynth.quantities.eseries import (
     SERIES,
-    is_standard,
     nearest,
     neighbours,
     series,
@@ -144,36 +143,50 @@ def test_values_between() -> None:
     assert values_between(2e3, 1e3, "E6") == []
 
 
+# The published tables above (IEC 60063, from memory), independent of the product's own:
+# E48 is every second E96 value, E192 the three-digit rounded formula with 9.20 for 9.19.
+PUBLISHED = {
+    "E3": E3_PUBLISHED, "E6": E6_PUBLISHED, "E12": E12_PUBLISHED, "E24": E24_PUBLISHED,
+    "E48": E96_PUBLISHED[::2], "E96": E96_PUBLISHED,
+    "E192": tuple(9.20 if m == 9.19 else m for m in _formula(192)),
+}
+
+
+def _published_around(value: float, name: str, decades: int = 2) -> list[float]:
+    """Every published value of the series within `decades` of `value`, ascending."""
+    d = math.floor(math.log10(value))
+    return [float(f"{m * 10.0 ** e:.3g}") for e in range(d - decades, d + decades + 1)
+            for m in PUBLISHED[name]]
+
+
 positive = st.floats(min_value=1e-13, max_value=1e10, allow_nan=False, allow_infinity=False)
 names = st.sampled_from(list(SERIES))
 
 
 @given(positive, names)
-def test_nearest_is_standard_and_closest(value: float, name: str) -> None:
-    # Property: the result is a series value, and no series value within a decade either
-    # side is closer on a ratio scale.
+def test_nearest_is_the_closest_published_value(value: float, name: str) -> None:
+    # Property against the published tables: the result is a published value, and none
+    # is closer on a ratio scale (ties within 1e-12 either way).
     best = nearest(value, name)
-    assert is_standard(best, name)
+    table = _published_around(value, name)
+    assert any(math.isclose(best, v, rel_tol=1e-12) for v in table), best
     err = abs(math.log(best / value))
-    for v in values_between(value / 10, value * 10, name):
-        assert err <= abs(math.log(v / value)) + 1e-12
+    assert err <= min(abs(math.log(v / value)) for v in table) + 1e-12
 
 
 @given(positive, names, st.integers(min_value=0, max_value=4))
-def test_neighbours_property(value: float, name: str, n: int) -> None:
-    # Property: n below and n above (plus the value when standard), consecutive, sorted.
+def test_neighbours_are_the_published_values_around(value: float, name: str, n: int) -> None:
+    # Property against the published tables: the n values below and the n above, with the
+    # value itself between them when it is standard (within 1e-9, as documented).
     got = neighbours(value, name, n)
-    standard = is_standard(value, name)
-    assert len(got) == 2 * n + (1 if standard else 0)
-    assert got == sorted(got)
-    assert all(is_standard(v, name) for v in got)
-    if standard:
-        assert got[n] == pytest.approx(value, rel=1e-9)
-        del got[n]
-    assert all(v < value for v in got[:n]) and all(v > value for v in got[n:])
-    if len(got) > 1:
-        full = neighbours(value, name, n)
-        assert full == values_between(full[0], full[-1], name)
+    table = _published_around(value, name)
+    same = [v for v in table if math.isclose(v, value, rel_tol=1e-9)]
+    below = [v for v in table if v < value and v not in same][-n:] if n else []
+    above = [v for v in table if v > value and v not in same][:n]
+    want = below + same + above
+    assert len(got) == len(want)
+    assert all(math.isclose(g, w, rel_tol=1e-12) for g, w in zip(got, want, strict=True)), \
+        (got, want)
 
 
 @given(positive, names)

@@ -71,10 +71,11 @@ def test_johnson_1k_at_290k_is_4nv():
     src = math.sqrt(sp.input_referred()[0, 0, -1])
     assert src == pytest.approx(4.0e-9, abs=0.005e-9)
     assert src == pytest.approx(math.sqrt(4 * K_CODATA * T0 * 1e3), rel=1e-6)
-    # a stage resistor at an ambient of 290 K gives the same density
+    # a stage resistor at an ambient of 290 K gives the same density, 4kTR of its own
     d = _design([_r("R1", "in", "out", 1e3)], rs=1e-6, rl=1e12)
     _, sp = _sweep(d, np.array([1e3]), ambient=T0 - 273.15)
-    assert math.sqrt(sp.input_referred()[0, 0, 0]) == pytest.approx(4.0017e-9, rel=1e-4)
+    assert math.sqrt(sp.input_referred()[0, 0, 0]) == pytest.approx(
+        math.sqrt(4 * K_CODATA * T0 * 1e3), rel=1e-6)
 
 
 def test_resistive_network_output_noise_is_4kt_re_z():
@@ -198,11 +199,18 @@ def test_zero_source_resistance_density_without_noise_figure():
 
 
 def test_flicker_corner_raises_base_noise_below_it():
-    """Base shot noise 2q·IB·(1 + fc/f): at f = fc/9 the in² term is ten times its white
-    value (contract §2); at high Rs where in dominates the density follows."""
-    dev = replace(TEST_NPN, flicker_corner=900.0)
+    """Base shot noise 2q·IB·(1 + fc/f) (contract §2; Schottky's shot noise, CODATA q): at
+    f = fc/9 the in² term is (1 + 9)/(1 + fc/100 kHz) times its value at 100 kHz, and at
+    100 kHz it is 2q·IB·(1 + fc/f) referred through Rs = 1 MΩ."""
+    fc = 900.0
+    dev = replace(TEST_NPN, flicker_corner=fc)
     d = _ce_bypassed(1e6, dev)
-    _a, sp = _sweep(d, np.array([100.0, 1e5]))
+    a, sp = _sweep(d, np.array([fc / 9, 1e5]))
     base = sp.labels.index("Q1 base shot")
     ref = sp.input_referred()[0, :, base]
-    assert ref[0] / ref[1] == pytest.approx(10.0 * 1.0005, rel=0.01)
+    assert ref[0] / ref[1] == pytest.approx((1 + 9.0) / (1 + fc / 1e5), rel=1e-6)
+    ib = a.nominal.transistors["Q1"].ib
+    # referred to the source EMF: a current into the input node is an EMF of i·Rs
+    # (Norton's theorem), so in²·Rs²; the generator sits behind rx = 40 Ω and a 1 mF
+    # coupling capacitor, which moves that by about 1e-4
+    assert ref[1] == pytest.approx(2 * Q_CODATA * ib * (1 + fc / 1e5) * 1e6 ** 2, rel=1e-3)

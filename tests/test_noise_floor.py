@@ -2,7 +2,11 @@
 refused with exit 1, the floor, its cause and what to relax.
 
 The floor is the two-generator model minimised over the collector current (Gray, Hurst,
-Lewis & Meyer; Motchenbacher & Connelly): 4kT·[rx + (Rs + rx)·√((1 + fc/f)/β)].
+Lewis & Meyer, 5th ed., noise chapter, bipolar equivalent input generators; Motchenbacher
+& Connelly, optimum source resistance; both from memory), derived here rather than taken
+from the product: en² = 4kT(rx + 1/(2gm)), in² = 2q·IC·(1 + fc/f)/β in series with
+Rs + rx give S(IC) = 4kT·rx + 2kT·VT/IC + 2q·IC·(1 + fc/f)·(Rs + rx)²/β, least at
+IC = VT·√(β/(1 + fc/f))/(Rs + rx), where S = 4kT·[rx + (Rs + rx)·√((1 + fc/f)/β)].
 """
 
 from __future__ import annotations
@@ -17,7 +21,14 @@ from conftest import TEST_NPN, npn_ce
 
 from stagesynth.contracts.spec import spec_template
 from stagesynth.engine.analysis import Environment, analyze
-from stagesynth.synthesis.lownoise import floor_density2
+
+K_CODATA = 1.380649e-23  # J/K, CODATA 2018 (exact)
+
+
+def floor_density2(rx: float, fc: float, rs: float, beta: float, f: float, tj: float) -> float:
+    """The least density² of the module docstring (V²/Hz), at junction temperature tj °C."""
+    kt = K_CODATA * (tj + 273.15)
+    return 4 * kt * (rx + (rs + rx) * math.sqrt((1 + fc / f) / beta))
 
 
 @pytest.mark.parametrize("rs", [50.0, 1e3, 10e3])
@@ -32,7 +43,7 @@ def test_no_design_gets_below_the_floor(rs, fc):
                                            band=(20.0, 50e3), noise_at=300.0))
     for p in (a.nominal, *a.corners):
         q = p.transistors["Q1"]
-        floor = math.sqrt(float(floor_density2(dev, rs, q.hfe, 300.0, q.tj)))
+        floor = math.sqrt(floor_density2(dev.r_bb, fc, rs, q.hfe, 300.0, q.tj))
         assert p.noise >= floor
 
 

@@ -1,7 +1,8 @@
 """The report bundle: every file is there, parses with standard tools, and renders.
 
 Outside judges: the XML parser and csv module of the standard library, matplotlib's PNG
-reader, python-control (the plotted Bode curve), Ohm's and Joule's laws (part stresses),
+reader, python-control (the plotted Bode curve), the independent reference model of
+tests/independent (the corners quoted on the plot), Ohm's and Joule's laws (part stresses),
 IEC 60063 (series labels) and headless Chromium (the HTML renders offline).
 """
 
@@ -22,6 +23,7 @@ import numpy as np
 import pytest
 
 sys.path.insert(0, str(Path(__file__).parent))
+from independent import refmodel
 from test_poles import state_space
 
 from stagesynth.contracts.device import PRESETS
@@ -241,8 +243,14 @@ def test_bode_curve_is_the_stage_response(case):
     assert np.abs(wrapped).max() < 1e-6
     fig = bode_figure(analysis, SPEC)
     texts = [t.get_text() for ax in fig.axes for t in ax.texts]
-    assert any(t.startswith("f_low") and "8.3 Hz" in t for t in texts)
-    assert any(t.startswith("f_high") and "kHz" in t for t in texts)
+    # the labels quote the corners the independent reference model finds for this design
+    # (tests/independent/refmodel.py, written from the contract), in engineering units
+    ref = refmodel.analyze(DESIGN, (SPEC.require.f_low, SPEC.require.f_high),
+                           ambient=SPEC.require.ambient, supply_tolerance=SPEC.supply.tolerance)
+    for name, want in (("f_low", ref.f_low), ("f_high", ref.f_high)):
+        label = next(t for t in texts if t.startswith(name))
+        quoted = _si(label.split("\n")[-1])
+        assert quoted == pytest.approx(want, rel=0.01), (label, want)  # 2-3 digits shown
     line = next(ln for ln in fig.axes[0].get_lines() if ln.get_label() == "gain, nominal")
     assert np.allclose(line.get_ydata(), data["mag_db"])
 

@@ -23,10 +23,7 @@ from independent import designs as ds
 from stagesynth.contracts.netlist import Design, design_from_dict
 from stagesynth.engine.analysis import analyze
 from stagesynth.report.touchstone import (
-    stage_network,
     stage_touchstone,
-    sweep_range,
-    touchstone_text,
     two_port_y,
     y_to_s,
 )
@@ -117,7 +114,6 @@ def test_file_layout(name, written):
     lo, hi = a.environment.band
     assert net.f[0] == pytest.approx(lo / 100, rel=1e-9)
     assert net.f[-1] == pytest.approx(hi * 100, rel=1e-9)
-    assert (net.f[0], net.f[-1]) == pytest.approx(sweep_range(a), rel=1e-9)
     ratios = net.f[1:] / net.f[:-1]
     assert np.allclose(ratios, ratios[0], rtol=1e-6)
 
@@ -147,14 +143,11 @@ def test_two_port_is_the_y_parameter_definition(written):
 
 @pytest.mark.parametrize("name", sorted(DESIGNS))
 def test_own_writer_matches_scikit_rf(name, written):
-    """Our Y->S conversion and Touchstone text against scikit-rf's y2s and its own writer."""
+    """Our Y->S conversion, and the S parameters in the file as scikit-rf reads them,
+    against scikit-rf's own y2s of the same Y parameters."""
     import skrf
 
-    a, net, path = written[name]
+    a, net, _ = written[name]
     y = two_port_y(a.system, net.f)
     np.testing.assert_allclose(y_to_s(y), skrf.network.y2s(y, z0=50.0), rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(net.s, skrf.network.y2s(y, z0=50.0), rtol=1e-9, atol=1e-12)
-    ref = skrf.Network(str(path))  # scikit-rf reading back what scikit-rf itself writes
-    twin = path.with_name("twin.s2p")
-    twin.write_text(touchstone_text(stage_network(a.design, a)), encoding="latin-1")
-    np.testing.assert_allclose(skrf.Network(str(twin)).s, ref.s, rtol=1e-9, atol=1e-12)
