@@ -24,6 +24,7 @@ from stagesynth.synthesis.topologies import (
     jfet_cs_div,
     jfet_cs_ef,
     jfet_sf_boot,
+    jfet_sf_ce,
 )
 
 FAMILIES = {
@@ -42,6 +43,7 @@ FAMILIES = {
         ce_ef,
         jfet_cascode,
         ef_ce,
+        jfet_sf_ce,
         ce_ce,
     )
 }
