@@ -182,8 +182,10 @@ def bias_notes(spec: Spec, analysis, ref: str = "J1") -> list[str]:
         f"Bias over the spread: the bias line crosses the transfer curves of the low unit "
         f"(IDSS min, VP nearest zero) and the high unit (IDSS max, VP farthest); over every "
         f"corner {ref} runs between {eng(ids[lo], 'A', 3)} ({states[lo][0]}) and "
-        f"{eng(ids[hi], 'A', 3)} ({states[hi][0]}), nominal {eng(ids[0], 'A', 3)}, each unit "
-        "in saturation with the swing (the report's transfer-curve figure draws it)."
+        f"{eng(ids[hi], 'A', 3)} ({states[hi][0]}), nominal {eng(ids[0], 'A', 3)}, "
+        + ("every unit in saturation at every corner" if all(s.active for _, s in states)
+           else "but not every corner keeps it in saturation")
+        + " (the report's transfer-curve figure draws it)."
     ]
 
 
