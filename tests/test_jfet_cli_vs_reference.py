@@ -4,9 +4,10 @@ The reference (tests/independent/refjfet.py, refjfetac.py) is written from the c
 and checked against textbooks in test_jfet_reference_textbook.py. Hand-written designs
 (tests/independent/jfetdesigns.py): a self-biased common source with a split source resistor
 and a capacitive source, a bootstrapped follower fed by an ideal 1 nF sensor, a common source
-with a 1 GOhm gate return into a bipolar emitter follower, and a P-channel common source;
-IDSS spreads of 5:1, ambient to 85 degC. Every contract §4 key at nominal and in every corner
-entry is compared, through the CLI as an acceptance check would run it.
+with a 1 GOhm gate return into a bipolar emitter follower, a JFET-bipolar cascode behind a
+2.2 nF element, a divider-biased common source with triode corners, and a P-channel common
+source; IDSS spreads of 5:1, ambient to 85 degC. Every contract §4 key at nominal and in
+every corner entry is compared, through the CLI as an acceptance check would run it.
 """
 
 from __future__ import annotations

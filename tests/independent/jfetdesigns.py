@@ -107,6 +107,16 @@ DESIGNS: dict[str, dict[str, Any]] = {
         _r("RS2", 3e3, "s2", "0"), _c("CS", 47e-6, "s2", "0"),
         _c("C2", 1e-6, "d1", "out"), _j("J1", "d1", "g1", "s1"),
     ], {"J": GENERAL_NJFET}),
+    # piezo preamp for bandwidth: the JFET's drain into a bipolar common base (cascode), the
+    # 2.2 nF element behind 100 Ohm, gate returned by 100 MOhm
+    "cascode": _design("Piezo preamp, JFET-bipolar cascode", 12.0,
+                       {"resistance": 100.0, "capacitance": 2.2e-9}, 47e3, 220e-12, [
+        _c("C1", 100e-9, "in", "g1"), _r("RG", 100e6, "g1", "0"),
+        _r("RS1", 100.0, "s1", "s2"), _r("RS2", 1.5e3, "s2", "0"), _c("CS", 47e-6, "s2", "0"),
+        _j("J1", "d1", "g1", "s1"), _q("Q1", "c2", "b2", "d1"),
+        _r("R1", 39e3, "vdd", "b2"), _r("R2", 33e3, "b2", "0"), _c("CB", 10e-6, "b2", "0"),
+        _r("RC", 3.3e3, "vdd", "c2"), _c("C2", 1e-6, "c2", "out"),
+    ], {"J": GENERAL_NJFET, "Q": SMALL_NPN}),
 }
 
 
@@ -137,6 +147,10 @@ SPECS: dict[str, dict[str, Any]] = {
     "cs_pjfet": _spec("cs_pjfet", "Contact-microphone preamp", 0.05, {
         "gain_db": 9.0, "gain_tolerance_db": 6.0, "f_low": 20.0, "f_high": 2e4,
         "z_in": 1e6, "swing": 2.0, "ambient": [0.0, 60.0], "noise": 20e-9, "noise_at": 1e3}),
+    "cascode": _spec("cascode", "Piezo preamp, cascode", 0.05, {
+        "gain_db": 16.0, "gain_tolerance_db": 6.0, "f_low": 20.0, "f_high": 5e4,
+        "z_in": 1e6, "swing": 2.0, "ambient": HOT, "noise": 20e-9, "noise_at": 1e3,
+        "noise_figure": 20.0, "supply_current": 3e-3}),
     "cs_divider": _spec("cs_divider", "Geophone preamp", 0.05, {
         "gain_db": 20.0, "gain_tolerance_db": 6.0, "f_low": 20.0, "f_high": 2e4,
         "z_in": 1e6, "swing": 2.0, "ambient": HOT, "noise": 20e-9, "noise_at": 1e3}),
