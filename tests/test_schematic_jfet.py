@@ -177,3 +177,18 @@ def test_lead_ends_are_where_schemdraw_puts_the_terminals(fet, p_type):
         assert math.dist(want, (float(have[0]), float(have[1]))) < 1e-3
     # the gate faces left, toward the signal, like the base
     assert mark.pins()[0][0] > base[0] and mark.pins()[2][0] > base[0]
+
+
+def test_report_draws_the_jfet_stage_driving_the_follower():
+    """Through the report's own path (the design analysed, electrolytics polarized from its DC
+    point): the schematic shows the JFET and the NPN, each labelled with its kind, every part
+    once, and the layout it draws is faithful to the netlist."""
+    from stagesynth.engine.analysis import analyze
+    from stagesynth.report.document import schematic_svg
+
+    d = cs_into_follower()
+    lines = texts(schematic_svg(d, analyze(d)))
+    assert lines.count("N-JFET") == 1 and lines.count("NPN") == 1
+    for p in d.parts:
+        assert lines.count(p.ref) == 1, p.ref
+    assert unfaithful(schematic.choose_layout(d, {}), d) == []
