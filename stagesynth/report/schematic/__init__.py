@@ -7,7 +7,8 @@ Three layouts, tried in turn:
   collector-to-base resistor or a split, decoupled one, and a split, bypassed emitter
   resistor; emitter follower, also with a bootstrapped base resistor) or at its emitter
   (common base: the base row sits beside the signal row with its bias and decoupling parts);
-  NPN or the PNP mirror; cascades;
+  NPN or the PNP mirror; cascades. A junction FET (N or P channel) takes a bipolar
+  transistor's place: drain, gate and source where collector, base and emitter would be;
 - net: any netlist; transistors left to right in signal order with the parts that run from
   their nodes to the rails wired in, the remaining parts drawn apart with each end named by
   its node (the same name is the same node);
