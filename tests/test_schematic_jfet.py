@@ -77,6 +77,14 @@ def bootstrapped_follower() -> Design:
                    r("R3", "x1", "0", 10e3), c("C2", "s1", "out", 10e-6)])
 
 
+def common_gate() -> Design:
+    """Signal into the source through C1; the gate held at AC ground by C3."""
+    return design([c("C1", "in", "s1", 10e-6), r("R1", "s1", "0", 1e3),
+                   jfet("J1", "d1", "g1", "s1"), r("R3", "g1", "0", 1e6),
+                   c("C3", "g1", "0", 1e-6), r("R2", "vcc", "d1", 4.7e3),
+                   c("C2", "d1", "out", 1e-6)])
+
+
 def cs_into_follower() -> Design:
     """JFET common source, its drain direct to the base of an NPN emitter follower."""
     return design([c("C1", "in", "g1", 100e-9), r("R1", "g1", "0", 10e6),
@@ -95,7 +103,8 @@ def p_common_source() -> Design:
 
 
 ALL = {"common_source": common_source, "source_follower": source_follower,
-       "bootstrapped_follower": bootstrapped_follower, "cs_into_follower": cs_into_follower,
+       "bootstrapped_follower": bootstrapped_follower, "common_gate": common_gate,
+       "cs_into_follower": cs_into_follower,
        "p_common_source": p_common_source}
 
 
