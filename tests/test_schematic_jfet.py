@@ -94,6 +94,18 @@ def cs_into_follower() -> Design:
                    c("C3", "e2", "out", 10e-6)], load_resistance=10e3)
 
 
+def cascode() -> Design:
+    """JFET common source under an NPN common base (its emitter on the drain, its base held
+    by a divider and decoupled): the JFET-bipolar cascode."""
+    return design([c("C1", "in", "g1", 4.7e-9), r("R1", "g1", "0", 36e6),
+                   jfet("J1", "d1", "g1", "s1"), r("R3", "s1", "x1", 470.0),
+                   r("R4", "x1", "0", 1.1e3), c("C3", "x1", "0", 47e-6),
+                   npn("Q1", "c2", "b2", "d1"), r("R5", "vcc", "b2", 51e3),
+                   r("R6", "b2", "0", 20e3), c("C4", "b2", "0", 10e-6),
+                   r("R2", "vcc", "c2", 8.2e3), c("C2", "c2", "out", 3.3e-6)],
+                  load_resistance=47e3)
+
+
 def p_common_source() -> Design:
     """P channel: source resistor and its bypass to the supply, drain resistor to ground."""
     return design([c("C1", "in", "g1", 100e-9), r("R1", "g1", "vcc", 10e6),
@@ -103,7 +115,8 @@ def p_common_source() -> Design:
 
 
 ALL = {"common_source": common_source, "source_follower": source_follower,
-       "bootstrapped_follower": bootstrapped_follower, "common_gate": common_gate,
+       "bootstrapped_follower": bootstrapped_follower, "cascode": cascode,
+       "common_gate": common_gate,
        "cs_into_follower": cs_into_follower,
        "p_common_source": p_common_source}
 
@@ -131,7 +144,7 @@ def test_jfet_stage_drawn_as_a_wired_chain(name):
         assert lines.count(p.ref) == 1, p.ref
     channel = "P-JFET" if name == "p_common_source" else "N-JFET"
     assert lines.count(channel) == 1
-    if name == "cs_into_follower":
+    if name in ("cs_into_follower", "cascode"):
         assert lines.count("NPN") == 1
 
 
