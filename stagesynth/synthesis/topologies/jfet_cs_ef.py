@@ -71,8 +71,8 @@ ROLES = {
     "J1": "junction FET, common source (input stage)",
     "Q1": "bipolar emitter follower (output buffer)",
 }
-VG_FRACTIONS = np.array([0.06, 0.12, 0.2])  # gate lift, fraction of the supply
-ID_FRACTIONS = np.array([0.03, 0.07, 0.15, 0.3, 0.5])  # of the low unit's IDSS (hot)
+VG_FRACTIONS = np.array([0.07, 0.15])  # gate lift, fraction of the supply
+ID_FRACTIONS = np.array([0.04, 0.1, 0.22, 0.45])  # of the low unit's IDSS (hot)
 POSITIONS = np.array([0.35, 0.65, 0.9])
 FOLLOWER_MULT = np.array([1.5, 3.0])
 
