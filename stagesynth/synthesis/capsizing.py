@@ -185,8 +185,12 @@ def size_capacitors(
     dominant = max(share, key=share.get)
     notes = (
         f"Low corner: short-circuit time constants allocate {100 * share[dominant]:.0f} % of "
-        f"the corner to {dominant} (it sees the smallest resistance, "
-        f"{eng(res[dominant], 'Ω', 4)}), the rest equally to the others.",
+        f"the corner to {dominant} (it sees the smallest resistance"
+        + (" of the others" if minor else "") + f", {eng(res[dominant], 'Ω', 4)}), "
+        + (f"{100 * MINOR_SHARE:.0f} % each to "
+           f"{', '.join(sorted(m for m in minor if m in share))} so they act well below "
+           "the corner, the rest equally to the others." if minor
+           else "the rest equally to the others."),
         f"Capacitors then scaled on the exact response and snapped to {series} so that "
         f"f_low ≤ {eng(target, 'Hz', 4)} even with every capacitor {100 * tolerance:.0f} % "
         f"low, at nominal and every corner (worst case {eng(worst[pick], 'Hz', 4)}; with "
