@@ -210,3 +210,14 @@ def test_bad_jfet_design_file_exits_2(tmp_path: Path, mutate, fragment) -> None:
     res = RUNNER.invoke(app, ["analyze", str(path)])
     assert res.exit_code == 2, res.output
     assert fragment in res.output and "Traceback" not in res.output
+
+
+def test_implausible_jfet_values_are_warned_about() -> None:
+    # common practice: small-signal JFETs have IDSS of microamps to some hundred mA and
+    # picofarad capacitances; a value a prefix away gets a warning naming the likely one
+    text = SPEC.replace('idss = ["2 mA", "12 mA"]', 'idss = ["2 mA", "3 A"]').replace(
+        'c_gd = "2 pF"', 'c_gd = "0.002 pF"')
+    warnings = spec_from_mapping(tomllib.loads(text), "w.toml").warnings
+    assert any("transistor.idss" in w and "3 mA" in w for w in warnings)
+    assert any("transistor.c_gd" in w and "2 pF" in w for w in warnings)
+    assert spec_from_mapping(tomllib.loads(SPEC), "ok.toml").warnings == ()

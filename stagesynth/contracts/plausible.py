@@ -29,6 +29,11 @@ SPANS: dict[str, tuple[str, float, float]] = {
     "transistor.vbe_current": ("A", 100e-9, 10.0),
     "transistor.ic_max": ("A", 100e-6, 100.0),
     "transistor.early_voltage": ("V", 1.0, 10e3),
+    # junction FET (common practice: small-signal JFETs)
+    "transistor.idss": ("A", 10e-6, 1.0),
+    "transistor.c_gs": ("F", 10e-15, 10e-9),
+    "transistor.c_gd": ("F", 10e-15, 10e-9),
+    "transistor.i_gss": ("A", 10e-15, 100e-9),
 }
 
 
@@ -74,7 +79,13 @@ def spec_warnings(spec) -> Iterator[str]:
         "transistor.ic_max": getattr(d, "ic_max", None),
         "transistor.early_voltage": getattr(d, "early_voltage", None),
     }
+    for key in ("c_gs", "c_gd", "i_gss"):
+        values[f"transistor.{key}"] = getattr(d, key, None)
     for key, value in values.items():
         message = check_value(key, value)
+        if message is not None:
+            yield message
+    for end in (getattr(d, "idss_min", None), getattr(d, "idss_max", None)):
+        message = check_value("transistor.idss", end)
         if message is not None:
             yield message
