@@ -353,9 +353,34 @@ def _linearity_notes(spec: Spec, analysis: Analysis) -> list[str]:
 def _low_frequency_droop(design: Design, spec: Spec, search: _Search) -> float:
     """|gain at midband| with the sized capacitors over that with them out of the way."""
     big = {p.ref: float(search.c_big[0]) for p in design.parts if p.kind == "capacitor"}
-    real = abs(analyze(design, spec).gain)
-    wide = abs(analyze(design.with_values(big), spec).gain)
+    real = _nominal_midband_gain(design, spec)
+    wide = _nominal_midband_gain(design.with_values(big), spec)
     return real / wide if wide > 0 else 1.0
+
+
+def _nominal_midband_gain(design: Design, spec: Spec) -> float:
+    """|gain| at the spec's midband and the nominal condition: analyze(design, spec).gain
+    without the corners, noise, distortion and stability a full analysis adds (a refusal
+    runs this for every family, and harmonic balance near the swing limit is slow)."""
+    from stagesynth.engine.analysis import (
+        Environment,
+        batch_values,
+        condition_arrays,
+        corner_conditions,
+    )
+    from stagesynth.engine.circuit import compile_design
+    from stagesynth.engine.evaluate import evaluate
+
+    env = Environment.for_design(design, spec)
+    circuit = compile_design(design)
+    r, c = batch_values(design, circuit)
+    nominal = condition_arrays(circuit, corner_conditions(design, env)[:1])
+    fig = evaluate(circuit, r, c, nominal, source_resistance=design.source_resistance,
+                   load_resistance=design.load_resistance,
+                   load_capacitance=design.load_capacitance,
+                   source_capacitance=design.source_capacitance, band=env.band,
+                   corners="none", ripple_at=env.ripple_at, response=False)
+    return abs(complex(fig.gain[0, 0]))
 
 
 def _ok_without_f_low(rows: list[Row], i: int) -> bool:
