@@ -9,6 +9,7 @@ property tests (which cannot take function-scoped fixtures) can use them too.
 from __future__ import annotations
 
 from dataclasses import replace
+from pathlib import Path
 
 import pytest
 
@@ -210,3 +211,20 @@ def ce_follower_design() -> Design:
 def any_design(request: pytest.FixtureRequest) -> Design:
     """Each hand-built fixture in turn."""
     return FIXTURE_BUILDERS[request.param]()
+
+
+HYDROPHONE_SPEC = Path(__file__).resolve().parents[1] / "specs" / "hydrophone-front-end.toml"
+
+
+@pytest.fixture(scope="session")
+def hydrophone_made(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """One `stagesynth design` of specs/hydrophone-front-end.toml with its report, shared
+    read-only by the CLI tests (a synthesis costs seconds: made once per session)."""
+    from typer.testing import CliRunner
+
+    from stagesynth.cli import app
+
+    out = tmp_path_factory.mktemp("hydrophone") / "out"
+    res = CliRunner().invoke(app, ["design", str(HYDROPHONE_SPEC), "--out", str(out)])
+    assert res.exit_code == 0, res.output
+    return out

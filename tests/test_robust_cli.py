@@ -29,12 +29,9 @@ RUNNER = CliRunner()
 
 
 @pytest.fixture(scope="module")
-def made(tmp_path_factory) -> Path:
-    """One full design of the hydrophone spec with its report (shared, read-only)."""
-    out = tmp_path_factory.mktemp("made") / "out"
-    res = RUNNER.invoke(app, ["design", str(SPEC_FILE), "--out", str(out)])
-    assert res.exit_code == 0, res.output
-    return out
+def made(hydrophone_made: Path) -> Path:
+    """One full design of the hydrophone spec with its report (the session's, read-only)."""
+    return hydrophone_made
 
 
 def _bad(res, *words: str) -> None:
