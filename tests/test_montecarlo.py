@@ -142,7 +142,10 @@ def test_sampling_follows_the_contract(ce_design):
     rel = s.r / r0 - 1
     assert rel.min() >= -0.05 and rel.max() <= 0.05
     assert np.std(rel) == pytest.approx(0.05 / math.sqrt(3), rel=0.03)  # uniform: a/sqrt(3)
+    lo, hi = designs.DESIGNS["ce_npn"]["devices"]["Q"]["hfe"]  # the design file's spread
     lnh = np.log(s.hfe25[:, 0])
-    assert lnh.min() >= math.log(100) and lnh.max() <= math.log(300)
-    assert np.mean(lnh) == pytest.approx(0.5 * math.log(100 * 300), abs=0.01)
+    assert lnh.min() >= math.log(lo) and lnh.max() <= math.log(hi)
+    # log-uniform: ln hFE uniform, mean at the middle, sd (ln hi - ln lo)/sqrt(12)
+    assert np.mean(lnh) == pytest.approx(0.5 * math.log(lo * hi), abs=0.01)
+    assert np.std(lnh) == pytest.approx(math.log(hi / lo) / math.sqrt(12), rel=0.03)
     assert s.supply.min() >= 12 * 0.95 and s.supply.max() <= 12 * 1.05
