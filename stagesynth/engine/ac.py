@@ -52,7 +52,12 @@ class AcSystem:
     def _y(self, freqs: np.ndarray, *, load: bool) -> np.ndarray:
         """Y(jw) for every batch member and frequency: (B, F, n, n)."""
         w = 2.0 * math.pi * np.asarray(freqs, dtype=float).reshape(self.batch, -1)
-        y = self.G[:, None, :, :] + 1j * w[:, :, None, None] * self.C[:, None, :, :]
+        # real and imaginary parts written in place: the same values as G + 1j*w*C without
+        # the complex temporaries (this is the hot path of every sweep and corner search)
+        b, n = self.G.shape[0], self.G.shape[1]
+        y = np.empty((b, w.shape[1], n, n), dtype=complex)
+        y.real[...] = self.G[:, None, :, :]
+        np.multiply(w[:, :, None, None], self.C[:, None, :, :], out=y.imag)
         if load:
             o = self.circuit.output
             y[:, :, o, o] += 1.0 / self.load_resistance[:, None] + (
