@@ -228,7 +228,9 @@ VALID_SPECS = st.fixed_dictionaries({
     "gain": st.sampled_from(["6 dB", "14 dB", "20 dB", "32 dB", "46 dB", "0.9 V/V"]),
     "f_high": st.sampled_from(["20 kHz", "200 kHz", "5 MHz"]),
     "z_in": st.sampled_from(["1 kΩ", "20 kΩ", "200 kΩ"]),
-    "voltage": st.sampled_from(["5 V", "12 V", "24 V"]),
+    # the first value of each list makes hypothesis' first (simplest) example: a spec that
+    # is met on 12 V, so the exit-0 path and its re-analysis are exercised every run
+    "voltage": st.sampled_from(["12 V", "5 V", "24 V"]),
     "preset": st.sampled_from(["generic-npn", "generic-pnp", "lownoise-npn"]),
 })
 
@@ -239,10 +241,12 @@ VALID_SPECS = st.fixed_dictionaries({
                                 "ce_ce", "bogus"]))
 def test_full_synthesis_exit_zero_means_a_design_that_meets(base, tmp_path_factory, choice,
                                                              circuit) -> None:
-    """A few full runs: exit 0 only with a design whose re-analysis meets the spec."""
+    """A few full runs: exit 0 only with a design whose re-analysis meets the spec (the
+    first two choices are met, so that path runs every time; the third is refused)."""
     data = copy.deepcopy(BASE_SPEC)
     data["require"].update(gain=choice["gain"], f_high=choice["f_high"], z_in=choice["z_in"])
-    data["require"].pop("supply_current", None)
+    for key in ("supply_current", "noise", "noise_at"):  # the hydrophone's own budget and
+        data["require"].pop(key, None)  # low-noise floor would refuse nearly every choice
     data["supply"]["voltage"] = choice["voltage"]
     data["transistor"] = {"preset": choice["preset"]}
     folder = tmp_path_factory.mktemp("full")
