@@ -141,10 +141,17 @@ def first_cut(spec: Spec) -> FirstCut:
     amp = swing_amplitude(spec)
     # the follower needs its emitter a peak above its rail: one more A of headroom
     rd_lo, rd_hi = drain_window(spec, pts, rs, ac_load=1e9, headroom=amp + 0.3 * amp)
+    zout = spec.require.z_out
+    if zout is not None:
+        # the follower shows RD/(hFE + 1) plus its re: keep RD where the slowest unit
+        # still meets z_out with the follower's re at a few milliamperes
+        rd_hi = np.minimum(rd_hi, 0.7 * (q.hfe_min + 1.0) * zout)
     rd = place(rd_lo, rd_hi, P)
     vd_high_unit = vcc - pts.id_high * rd  # N frame: the drain's lowest point
     ve2 = np.maximum(vd_high_unit - q.vbe, 0.05)
     ie2 = follower_current(spec, ve2) * M
+    if zout is not None:  # and the follower's own re well inside z_out
+        ie2 = np.maximum(ie2, 4.0 * VT25 / zout)
     re = ve2 / ie2
     ok = (rd_hi > rd_lo) & (ve2 > 1.2 * amp) & (pts.id_low > 1.5e-6) & (rs > 0)
     r1, r2 = divider(spec, VG, rth)
