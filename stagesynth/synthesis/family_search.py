@@ -314,17 +314,19 @@ def _quiet_input_coupling(design: Design, spec: Spec) -> Design:
         values[p.ref] = min(min(up) if up else max(opts), max(cap, p.value))
     if not values:
         return design
-    # a larger capacitor leaks more: where the raised one would have to be film or
-    # ceramic (its leakage moving the bias), hold it to film size, never below its old value
-    from stagesynth.synthesis.leakage import FILM_MAX
+    # a larger capacitor leaks more: where the raised one's leakage would move the bias,
+    # hold it to the largest size that does not (film size at least), never below its
+    # old value
     from stagesynth.synthesis.practical import leakage_limits
 
     old = {p.ref: p.value for p in design.parts}
     flagged = leakage_limits(design.with_values(values), spec)
     for ref in values:
-        if ref in flagged and values[ref] > FILM_MAX:
-            values[ref] = max(old[ref], max(v for v in (nearest(FILM_MAX, series), *neighbours(
-                FILM_MAX, series, 1)) if v <= FILM_MAX * (1 + 1e-9)))
+        if ref in flagged and values[ref] > flagged[ref]:
+            ceiling = flagged[ref]
+            below = [v for v in (nearest(ceiling, series), *neighbours(ceiling, series, 1))
+                     if v <= ceiling * (1 + 1e-9)]
+            values[ref] = max(old[ref], max(below) if below else old[ref])
     return design.with_values(values)
 
 

@@ -18,6 +18,8 @@ import numpy as np
 from stagesynth.synthesis.leakage import (
     BIAS_SHIFT_MAX,
     FILM_MAX,
+    LEAK_FLOOR,
+    LEAK_UA_PER_UF_V,
     leakage_current,
     rated_voltage,
     shift_per_ampere,
@@ -156,9 +158,19 @@ def practicality(result) -> float:
 
 
 def leakage_limits(design, spec) -> dict[str, float]:
-    """Capacitors of a sized design that would be electrolytics where leakage matters:
-    each gets FILM_MAX as its ceiling for the next sizing."""
+    """Capacitors of a sized design whose electrolytic would leak too much, each with its
+    ceiling for the next sizing: the largest electrolytic whose common-practice leakage
+    still moves no bias current by more than BIAS_SHIFT_MAX (leakage grows with C above
+    its floor), or FILM_MAX where even the smallest electrolytic's floor leakage does."""
     from stagesynth.synthesis.leakage import capacitor_kinds
 
-    return {ref: FILM_MAX for ref, kind in capacitor_kinds(design, spec).items()
-            if kind.kind == "film or ceramic required"}
+    out = {}
+    for ref, kind in capacitor_kinds(design, spec).items():
+        if kind.kind != "film or ceramic required":
+            continue
+        allowed = BIAS_SHIFT_MAX * kind.leakage / kind.bias_shift  # A of leakage
+        largest = 0.0
+        if allowed > LEAK_FLOOR:  # 0.9: room for the leakage figure's own rounding
+            largest = 0.9 * allowed / (LEAK_UA_PER_UF_V * 1e-6 * kind.rated_voltage) * 1e-6
+        out[ref] = max(FILM_MAX, largest)
+    return out
