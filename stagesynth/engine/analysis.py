@@ -10,7 +10,7 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -69,15 +69,32 @@ class Condition:
     hfe: Mapping[str, float]
     ambient: float
     supply: float
+    # junction FETs: the unit at this condition (u along the pairing, IDSS and VP at
+    # 25 degC, VP signed as the channel has it); `hfe` holds u for them
+    jfet_units: Mapping[str, Mapping[str, float]] = field(default_factory=dict)
 
     def to_dict(self) -> dict:
-        return {
+        out = {
             "label": self.label,
             "hfe": self.hfe_case,
             "hfe_values": dict(self.hfe),
             "ambient_c": self.ambient,
             "supply_v": self.supply,
         }
+        if self.jfet_units:
+            out["jfet_units"] = {k: dict(v) for k, v in self.jfet_units.items()}
+        return out
+
+
+def _jfet_units(design: Design, spread: Mapping[str, float]) -> dict[str, dict[str, float]]:
+    """IDSS and VP (25 degC) of each junction-FET type at its spread position u."""
+    out = {}
+    for name, u in spread.items():
+        dev = design.devices[name]
+        if is_jfet(dev):
+            idss, vp = dev.unit(u)
+            out[name] = {"u": float(u), "idss": float(idss), "vp": float(vp) * dev.sign}
+    return out
 
 
 @dataclass(frozen=True)
@@ -278,6 +295,7 @@ def corner_conditions(design: Design, env: Environment) -> list[Condition]:
         T_REF_C,
         v0,
     )
+    nominal = replace(nominal, jfet_units=_jfet_units(design, nominal.hfe))
     ambients = sorted(set(env.ambient))
     supplies = sorted({v0 * (1 - env.supply_tolerance), v0 * (1 + env.supply_tolerance)})
     out = [nominal]
@@ -292,7 +310,7 @@ def corner_conditions(design: Design, env: Environment) -> list[Condition]:
         for amb in ambients:
             for vs in supplies:
                 label = f"{_case_label(design, names, cases)}, {amb:g} °C, {vs:.4g} V"
-                out.append(Condition(label, case, hfe, amb, vs))
+                out.append(Condition(label, case, hfe, amb, vs, _jfet_units(design, hfe)))
     return out
 
 
