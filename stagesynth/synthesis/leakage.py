@@ -103,15 +103,19 @@ class CapacitorKind:
 
     @property
     def reason(self) -> str:
-        pct = 100.0 * self.bias_shift
+        from stagesynth.quantities.units import format_number, format_quantity
+
+        pct = format_number(100.0 * self.bias_shift, 2)
+        leak = format_quantity(self.leakage, "A")
         if self.kind == "film or ceramic required":
-            return (f"an electrolytic's leakage (about {self.leakage * 1e6:.3g} µA at "
-                    f"{self.rated_voltage:g} V rating) would move a collector current by "
-                    f"{pct:.2g} % (more than {100 * BIAS_SHIFT_MAX:g} %)")
+            return (f"an electrolytic's leakage (about {leak} at "
+                    f"{format_quantity(self.rated_voltage, 'V')} rating) would move a "
+                    f"collector or drain current by {pct} % (more than "
+                    f"{format_number(100 * BIAS_SHIFT_MAX)} %)")
         if self.kind == "electrolytic allowed":
-            return (f"an electrolytic's leakage (about {self.leakage * 1e6:.3g} µA) moves a "
-                    f"collector current by {pct:.2g} % at most")
-        return f"small enough for film or ceramic (≤ {FILM_MAX * 1e6:g} µF)"
+            return (f"an electrolytic's leakage (about {leak}) moves a collector or drain "
+                    f"current by {pct} % at most")
+        return f"small enough for film or ceramic (≤ {format_quantity(FILM_MAX, 'F')})"
 
 
 def classify(value: float, dc_voltage: float, shift_per_amp: float, ref: str = ""
