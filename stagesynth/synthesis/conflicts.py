@@ -141,6 +141,16 @@ def _advice(name: str, best: float, spec: Spec, unit: str) -> str:
         return (f"relax f_high to {_fmt(0.98 * best, 'Hz')}, lower the gain, reduce the load "
                 "capacitance or source resistance, or choose a faster transistor")
     if name == "z_in":
+        from stagesynth.contracts.jfet import is_jfet
+
+        if is_jfet(spec.transistor):
+            # a JFET's gate draws only leakage: a plain gate return of the asked size
+            # is the practitioner's answer once the part limit allows it
+            wanted = 1.5 * float(spec.require.z_in or 0.0)
+            return (f"relax z_in to {_fmt(0.98 * best, 'Ω')}, or allow a gate return of "
+                    f"about {_fmt(wanted, 'Ω')} ([parts] resistor_max, now "
+                    f"{_fmt(spec.parts.resistor_max, 'Ω')}; a bootstrapped gate resistor "
+                    "multiplies a resistor only by 1 + gm·RS)")
         return (f"relax z_in to {_fmt(0.98 * best, 'Ω')}, or let a follower input stage "
                 "(ef_ce) or a bootstrapped bias (ef_boot) carry the input impedance")
     if name == "z_out":
