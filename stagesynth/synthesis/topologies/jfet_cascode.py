@@ -142,7 +142,8 @@ def describe(spec: Spec, design: Design, analysis) -> list[str]:
     j = analysis.nominal.transistors["J1"]
     q = analysis.nominal.transistors["Q1"]
     return [
-        *cs_notes(spec, design, analysis, v.get("R3", 0.0), v.get("R4", 0.0), v["R2"]),
+        *cs_notes(spec, design, analysis, v.get("R3", 0.0), v.get("R4", 0.0), v["R2"],
+                  load="RC"),
         f"Cascode: Q1 holds the drain at VDS ≈ {eng(j.vce, 'V', 3)} (Q1 VCE ≈ "
         f"{eng(q.vce, 'V', 3)}), so the gate-drain capacitance sees almost no voltage gain "
         f"(no Miller multiplication); upper corner {eng(analysis.nominal.f_high, 'Hz', 3)} at "

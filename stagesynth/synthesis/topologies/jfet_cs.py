@@ -115,20 +115,24 @@ def precheck(spec: Spec) -> list[Conflict]:
 
 
 def cs_notes(spec: Spec, design: Design, analysis, rs1: float, rs2: float, rd: float,
-             ref: str = "J1") -> list[str]:
-    """Bias, gain and split lines shared by the common-source families."""
+             ref: str = "J1", load: str = "RD") -> list[str]:
+    """Bias, gain and split lines shared by the common-source families (`load` names the
+    resistor that carries the signal current: RD, or RC on a cascode's collector)."""
     st = analysis.nominal.transistors[ref]
     rl = spec.load.resistance
     rac = rd * rl / (rd + rl)
     gm = gm_at(st.idss, st.vp, st.ic) if st.idss else float("nan")
+    dev = design.devices[next(p.device for p in design.parts if p.ref == ref)]
+    spread = dev.idss_max / dev.idss_min
     return [
         f"Bias point (nominal unit) ID ≈ {eng(st.ic, 'A', 3)}, VDS ≈ {eng(st.vce, 'V', 3)}, "
         f"VGS ≈ {eng(st.vbe, 'V', 3)} (IDSS {eng(st.idss or 0.0, 'A', 3)}, VP "
         f"{eng(st.vp or 0.0, 'V', 3)} at its junction temperature); gm = 2·√(IDSS·ID)/|VP| ≈ "
         f"{eng(float(gm), 'S', 3)} (Sedra & Smith).",
-        f"Gain ≈ gm·(RD ∥ RL)/(1 + gm·RS1) with RD ∥ RL ≈ {eng(rac, 'Ω', 3)}, RS1 = "
+        f"Gain ≈ gm·({load} ∥ RL)/(1 + gm·RS1) with {load} ∥ RL ≈ {eng(rac, 'Ω', 3)}, RS1 = "
         f"{eng(rs1, 'Ω', 3)}: the unbypassed part makes gm·RS1 ≈ {num(float(gm * rs1), 3)}, "
-        "which holds the gain over the 5:1-class spread of gm between the corner units; "
+        f"which holds the gain over the {num(spread, 2)}:1 IDSS spread between the corner "
+        "units; "
         f"RS2 = {eng(rs2, 'Ω', 3)} is bypassed and only sets the bias.",
         *bias_notes(spec, analysis, ref),
     ]
