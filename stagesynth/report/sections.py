@@ -93,6 +93,10 @@ def circuit_text(design: Design, analysis: Analysis) -> list[str]:
     if design.load_capacitance > 0:
         load += f" ∥ {fmt(design.load_capacitance, 'F')}"
     src = fmt(design.source_resistance, "Ω") if design.source_resistance > 0 else "no resistance"
+    if design.source_capacitance > 0:  # a piezo or capacitive sensor: C in series with the EMF
+        cs = fmt(design.source_capacitance, "F")
+        src = (f"{src} and {cs} in series (the sensor's capacitance Cs; it and the input "
+               "resistance set a low corner)")
     return [
         f"Supply: {fmt(design.supply_voltage, 'V')}{tol} at node {design.supply_node}, "
         f"ground is node {design.ground}.",

@@ -216,22 +216,22 @@ class Builder:
 
     # -- blocks shared by the layouts -----------------------------------------
     def source(self, required: bool = False) -> None:
-        """Signal source (EMF and Rs) left of the input terminal, which sits at (0, 0)."""
+        """Signal source (EMF, then Cs and Rs in series where given) left of the input
+        terminal, which sits at (0, 0)."""
         d = self.d
-        rs = d.source_resistance
-        xs = -(L + 1.0) if rs > 0 else -1.75
+        series = source_series(d, self.texts)
+        xs = -(len(series) * L + 1.0) if series else -1.75
+        first = series[0][3][0] if series else d.input
         src = Two("vs", "source", (xs, DOWN), (xs, 0.0), "vs", external=True, sides=("left",),
-                   nodes=(d.ground, EMF if rs > 0 else d.input))
+                  nodes=(d.ground, first))
         self.sheet.twos.append(src)
         self.space.add_v(xs, DOWN, 0.0, d.ground, d.input)
-        if rs > 0:
-            text = f"Rs\n{self.texts.get('Rs', fmt(rs, 'Ω'))}"
-            self.sheet.twos.append(Two("Rs", "resistor", (xs, 0.0), (xs + L, 0.0), text,
-                                        external=True, sides=("above",),
-                                        nodes=(EMF, d.input)))
-            self.sheet.wires.append(((xs + L, 0.0), (0.0, 0.0), True))
-        else:
-            self.sheet.wires.append(((xs, 0.0), (0.0, 0.0), True))
+        x = xs
+        for ref, kind, text, nodes in series:
+            self.sheet.twos.append(Two(ref, kind, (x, 0.0), (x + L, 0.0), text,
+                                       external=True, sides=("above",), nodes=nodes))
+            x += L
+        self.sheet.wires.append(((x, 0.0), (0.0, 0.0), True))
         self.space.add_h(0.0, xs, 0.0, d.input)
         self.space.boxes.append((xs - 1.4, -L - 0.5, -0.3, 1.3))
         self.sheet.frames.append(((xs - 1.3, DOWN, -0.45, 1.35), "source"))
@@ -326,3 +326,17 @@ class Builder:
         left = [p.ref for p in self.passives if p.ref not in self.used]
         if left:
             raise NotAChain(f"parts not drawn: {left}")
+
+
+def source_series(d: Design, texts: Mapping[str, str]) -> list[tuple[str, str, str, tuple]]:
+    """The source's series parts left to right (ref, kind, label, nodes): the sensor's
+    capacitance Cs, then Rs; the nodes between them are drawing-only (not in the netlist)."""
+    parts = []
+    if d.source_capacitance > 0:
+        parts.append(("Cs", "capacitor",
+                      f"Cs\n{texts.get('Cs', fmt(d.source_capacitance, 'F'))}"))
+    if d.source_resistance > 0:
+        parts.append(("Rs", "resistor", f"Rs\n{texts.get('Rs', fmt(d.source_resistance, 'Ω'))}"))
+    inner = [EMF, *(f"(source {i})" for i in range(1, len(parts)))]
+    ends = [*inner, d.input]
+    return [(ref, kind, text, (ends[i], ends[i + 1])) for i, (ref, kind, text) in enumerate(parts)]

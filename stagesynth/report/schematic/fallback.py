@@ -6,7 +6,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 
 from stagesynth.contracts.netlist import Design, Part
-from stagesynth.report.schematic.builder import Builder
+from stagesynth.report.schematic.builder import Builder, source_series
 from stagesynth.report.schematic.labels import SMALL, fmt, part_text, supply_text, text_box
 from stagesynth.report.schematic.recognize import (
     hop_distances,
@@ -18,7 +18,6 @@ from stagesynth.report.schematic.recognize import (
     signal_order,
 )
 from stagesynth.report.schematic.sheet import (
-    EMF,
     LANE,
     NET_BLUE,
     L,
@@ -156,19 +155,18 @@ def generic_sheet(design: Design, texts: Mapping[str, str]) -> Sheet:
         named_end(sheet, design, at, node, toward)
 
     # source block: EMF, Rs, input terminal
-    rs = design.source_resistance
+    series = source_series(design, texts)
     sheet.twos.append(Two("vs", "source", (0.0, -L), (0.0, 0.0), "vs", external=True,
                            sides=("left",),
-                           nodes=(design.ground, EMF if rs > 0 else design.input)))
+                           nodes=(design.ground, series[0][3][0] if series else design.input)))
     sheet.grounds.append(((0.0, -L), True))
-    x_in = L + 0.75 if rs > 0 else 1.5
-    if rs > 0:
-        sheet.twos.append(Two("Rs", "resistor", (0.0, 0.0), (L, 0.0),
-                               f"Rs\n{texts.get('Rs', fmt(rs, 'Ω'))}", external=True,
-                               sides=("above",), nodes=(EMF, design.input)))
-        sheet.wires.append(((L, 0.0), (x_in, 0.0), True))
-    else:
-        sheet.wires.append(((0.0, 0.0), (x_in, 0.0), True))
+    x_in = len(series) * L + 0.75 if series else 1.5
+    x = 0.0
+    for ref, kind, text, nodes in series:
+        sheet.twos.append(Two(ref, kind, (x, 0.0), (x + L, 0.0), text, external=True,
+                               sides=("above",), nodes=nodes))
+        x += L
+    sheet.wires.append(((x, 0.0), (x_in, 0.0), True))
     sheet.frames.append(((-1.4, -L - 1.0, x_in - 0.45, 1.35), "source"))
     sheet.terminals.append(((x_in, 0.0), "in"))
     if design.input != "in":  # the terminal's own label names it otherwise
