@@ -14,6 +14,7 @@ from stagesynth.contracts.device import BOLTZMANN, ELEMENTARY_CHARGE, ZERO_CELSI
 from stagesynth.contracts.jfet import gate_leakage, is_jfet
 from stagesynth.engine.jfetbias import gm_at
 from stagesynth.quantities.units import format_quantity as fq
+from stagesynth.synthesis.lownoise import dominant_terms
 
 
 def rationale(spec, analysis) -> list[str]:
@@ -25,13 +26,7 @@ def rationale(spec, analysis) -> list[str]:
     rows = contributions(analysis, f)
     if not rows:
         return []
-    total = math.sqrt(sum(x.density2 for x in rows))
-    lines = [
-        f"Noise at {fq(f, 'Hz')}: {fq(total, 'V/√Hz')} input-referred; the largest term is "
-        f"{rows[0].label} ({100 * rows[0].share:.0f} %)"
-        + (", then " + ", ".join(f"{x.label} {100 * x.share:.0f} %" for x in rows[1:4])
-           if len(rows) > 1 else "") + "."
-    ]
+    lines = [dominant_terms(rows, f)]
     fets = [(ref, st) for ref, st in analysis.nominal.transistors.items()
             if getattr(st, "kind", "bjt") == "jfet" and st.idss]
     dev = spec.transistor

@@ -162,6 +162,16 @@ def advice(spec, name: str) -> str:
     return "; ".join(parts)
 
 
+def dominant_terms(rows, f: float) -> str:
+    """One sentence: the input-referred total at `f` and its largest terms, from the
+    engine's `contributions` (largest first)."""
+    total = math.sqrt(sum(x.density2 for x in rows))
+    rest = ", ".join(f"{x.label} {100 * x.share:.0f} %" for x in rows[1:4])
+    return (f"Noise at {fq(f, 'Hz')}: {fq(total, 'V/√Hz')} input-referred; the largest term "
+            f"is {rows[0].label} ({100 * rows[0].share:.0f} %)"
+            + (f", then {rest}" if rest else "") + ".")
+
+
 def rationale(spec, analysis) -> list[str]:
     """Why this bias current, and which noise term dominates at noise_at (report notes)."""
     from stagesynth.engine.noise import contributions
@@ -173,13 +183,7 @@ def rationale(spec, analysis) -> list[str]:
         return []
     dev = spec.transistor
     rs = spec.source.resistance
-    top = rows[0]
-    total = math.sqrt(sum(x.density2 for x in rows))
-    lines = [
-        f"Noise at {fq(f, 'Hz')}: {fq(total, 'V/√Hz')} input-referred; the largest term is "
-        f"{top.label} ({100 * top.share:.0f} %), then "
-        + ", ".join(f"{x.label} {100 * x.share:.0f} %" for x in rows[1:4]) + "."
-    ]
+    lines = [dominant_terms(rows, f)]
     q = next(iter(analysis.nominal.transistors.items()), None)
     if q is None:
         return lines
