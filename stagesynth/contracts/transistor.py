@@ -81,6 +81,16 @@ JFET_KEYS: tuple[str, ...] = ("preset", "file", "name", "kind", "polarity", "ids
 DEVICE_KEYS: tuple[str, ...] = (*BJT_KEYS, *(k for k in JFET_KEYS if k not in BJT_KEYS))
 KINDS = ("bjt", "jfet")
 
+def _name(data: Mapping[str, Any], file: str, key_prefix: str) -> dict[str, str]:
+    """The optional free-text `name` of a [transistor]-style table, checked."""
+    if "name" not in data:
+        return {}
+    if not isinstance(data["name"], str):
+        raise StageError(f"{data['name']!r} is not text", file=file,
+                         key=_where(key_prefix, "name"), accepted="a free-text name")
+    return {"name": data["name"]}
+
+
 def device_from_mapping(
     data: Mapping[str, Any],
     file: str,
@@ -192,11 +202,7 @@ def _bjt_from_mapping(
             base = _base_file(data, file, key_prefix, base_dir)
 
     values: dict[str, Any] = {}
-    if "name" in data:
-        if not isinstance(data["name"], str):
-            raise StageError(f"{data['name']!r} is not text", file=file,
-                             key=_where(key_prefix, "name"), accepted="a free-text name")
-        values["name"] = data["name"]
+    values.update(_name(data, file, key_prefix))
     if "polarity" in data:
         polarity = data["polarity"]
         norm = polarity.strip().lower() if isinstance(polarity, str) else None
@@ -327,11 +333,7 @@ def jfet_from_mapping(
                          key=_where(key_prefix, "file" if "file" in data else "preset"),
                          accepted=", ".join(JFET_PRESETS))
     values: dict[str, Any] = {}
-    if "name" in data:
-        if not isinstance(data["name"], str):
-            raise StageError(f"{data['name']!r} is not text", file=file,
-                             key=_where(key_prefix, "name"), accepted="a free-text name")
-        values["name"] = data["name"]
+    values.update(_name(data, file, key_prefix))
     if "polarity" in data:
         pol = data["polarity"]
         norm = pol.strip().lower() if isinstance(pol, str) else None
