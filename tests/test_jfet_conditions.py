@@ -1,4 +1,5 @@
-"""The corners of a junction-FET design name the unit they take: contract §2 "Junction FET"
+"""The corners of a junction-FET design name the unit they take. Outside source: the
+spec-format contract (docs/spec-format.md, §2 "Junction FET"), which
 pairs idss min with the vp nearest zero and idss max with the vp farthest from zero, and
 takes the geometric mean of each spread as nominal."""
 

@@ -2,7 +2,8 @@
 
 spec -> synthesis -> netlist -> analysis -> verdict -> report: a module may import
 its own layer or a lower one, never a higher one (imports inside functions count).
-The ranks are the contributor guide's map (DEVELOPERS.md, "Layout").
+The ranks are the contributor guide's map (DEVELOPERS.md, "Layout"); this is a project
+rule, not physics, so its only source is that guide and the issue that asked for it.
 """
 
 from __future__ import annotations
